@@ -1,0 +1,1 @@
+"""Kiln agents: networks, replay, the soft actor-critic update, training loop, policies, exact solvers."""

@@ -1,0 +1,29 @@
+"""Map actions between the agent's (−1, 1) units and the task's Box bounds."""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+class ActionScale:
+    """Affine map between ``[-1, 1]`` and ``[low, high]`` per dimension.
+
+    Args:
+        low: The task's lower action bounds.
+        high: The task's upper action bounds.
+    """
+
+    def __init__(self, low: np.ndarray, high: np.ndarray) -> None:
+        self.low = np.asarray(low, dtype=np.float64)
+        self.high = np.asarray(high, dtype=np.float64)
+        self._centre = (self.high + self.low) / 2.0
+        self._half = (self.high - self.low) / 2.0
+
+    def to_env(self, action: np.ndarray) -> np.ndarray:
+        """Agent units (−1, 1) → task units, clipped to the bounds against round-off."""
+        out = self._centre + self._half * np.asarray(action, dtype=np.float64)
+        return np.clip(out, self.low, self.high).astype(np.float32)
+
+    def to_agent(self, action: np.ndarray) -> np.ndarray:
+        """Task units → agent units (−1, 1)."""
+        return ((np.asarray(action, dtype=np.float64) - self._centre) / self._half).astype(np.float32)

@@ -1,0 +1,79 @@
+"""Squashed-Gaussian actor: an MLP with mean and log-std heads, actions in (−1, 1).
+
+Actions leave the network in (−1, 1); mapping them to the task's bounds happens outside the
+network (:mod:`agents.action_scale`), so a saved policy stays independent of the task's units.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import torch
+import torch.nn.functional as F
+from torch import nn
+
+from agents import squashed_gaussian
+from agents.nets import EnsembleMLP
+
+
+def soft_clamp(x: torch.Tensor, low: float, high: float) -> torch.Tensor:
+    """Clamp ``x`` into ``(low, high)`` smoothly: near-identity inside, a gradient everywhere.
+
+    A hard clamp zeroes the gradient outside the bounds, so a log-std pushed past a bound could
+    never come back; a tanh rescaling instead would start every log-std at the bounds' midpoint
+    (−9 for the usual (−20, 2)), an almost deterministic initial policy.
+    """
+    x = high - F.softplus(high - x)
+    return low + F.softplus(x - low)
+
+
+class SquashedGaussianActor(nn.Module):
+    """Gaussian policy over pre-squash ``u``; the action is ``tanh(u)``.
+
+    Args:
+        obs_dim: Length of the flat observation.
+        act_dim: Number of action dimensions.
+        hidden_sizes: Widths of the hidden layers.
+        activation: Name of the hidden activation (see :data:`agents.nets.ACTIVATIONS`).
+        log_std_bounds: ``(low, high)`` for the log standard deviation of ``u``.
+        generator: Source of the initial weights (owned by the run).
+    """
+
+    def __init__(
+        self,
+        obs_dim: int,
+        act_dim: int,
+        hidden_sizes: Sequence[int],
+        activation: str,
+        log_std_bounds: tuple[float, float],
+        generator: torch.Generator | None = None,
+    ) -> None:
+        super().__init__()
+        low, high = float(log_std_bounds[0]), float(log_std_bounds[1])
+        if not low < high:
+            raise ValueError(f"log_std_bounds must be increasing, got {log_std_bounds}")
+        self.obs_dim, self.act_dim = obs_dim, act_dim
+        self.hidden_sizes, self.activation = tuple(int(h) for h in hidden_sizes), activation
+        self.log_std_low, self.log_std_high = low, high
+        # One network with 2·act_dim outputs: the first half is the mean, the second the raw log-std.
+        self.body = EnsembleMLP(1, obs_dim, hidden_sizes, 2 * act_dim, activation, generator)
+
+    def forward(self, obs: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+        """Return ``(mean, log_std)`` of ``u``, each ``[B, act_dim]``."""
+        out = self.body(obs)[0]
+        mean, raw = out.chunk(2, dim=-1)
+        return mean, soft_clamp(raw, self.log_std_low, self.log_std_high)
+
+    def sample(
+        self, obs: torch.Tensor, generator: torch.Generator | None = None
+    ) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor]:
+        """Reparameterised action in (−1, 1), its per-dimension log-density, and the log-std."""
+        mean, log_std = self(obs)
+        action, log_prob = squashed_gaussian.sample(mean, log_std, generator)
+        return action, log_prob, log_std
+
+    @torch.no_grad()
+    def deterministic(self, obs: torch.Tensor) -> torch.Tensor:
+        """The policy's mode in u-space, squashed: ``tanh(mean)``."""
+        mean, _ = self(obs)
+        return torch.tanh(mean)

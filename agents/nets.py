@@ -1,0 +1,85 @@
+"""Multi-layer perceptrons with a leading ensemble axis.
+
+The twin soft Q-networks are one module whose weights carry a leading axis of size ``members``;
+a forward pass is one batched matmul per layer instead of a Python loop over networks. The actor
+is the same module with ``members = 1``, so that population training can later add agents along
+the same axis without new code.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import torch
+from torch import nn
+
+ACTIVATIONS: dict[str, type[nn.Module]] = {
+    "relu": nn.ReLU,
+    "tanh": nn.Tanh,
+    "elu": nn.ELU,
+    "silu": nn.SiLU,
+}
+
+
+class EnsembleLinear(nn.Module):
+    """``members`` independent affine maps evaluated together.
+
+    Input ``[B, in]`` is shared by every member (broadcast); input ``[members, B, in]`` gives each
+    member its own rows. Output is ``[members, B, out]``.
+    """
+
+    def __init__(
+        self, members: int, in_features: int, out_features: int, generator: torch.Generator | None = None
+    ) -> None:
+        super().__init__()
+        self.members, self.in_features, self.out_features = members, in_features, out_features
+        self.weight = nn.Parameter(torch.empty(members, in_features, out_features))
+        self.bias = nn.Parameter(torch.empty(members, 1, out_features))
+        self.reset_parameters(generator)
+
+    def reset_parameters(self, generator: torch.Generator | None = None) -> None:
+        """Initialise each member as torch's ``nn.Linear`` would (uniform ±1/√fan_in), from ``generator``."""
+        bound = 1.0 / math.sqrt(self.in_features)
+        with torch.no_grad():
+            # Same distribution as nn.Linear's default (kaiming_uniform with a=√5 gives ±1/√fan_in).
+            self.weight.uniform_(-bound, bound, generator=generator)
+            self.bias.uniform_(-bound, bound, generator=generator)
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        if x.dim() == 2:
+            # [B, in] @ [M, in, out] broadcasts to [M, B, out] without copying x M times.
+            return torch.matmul(x, self.weight) + self.bias
+        return torch.baddbmm(self.bias, x, self.weight)
+
+    def extra_repr(self) -> str:
+        return f"members={self.members}, in_features={self.in_features}, out_features={self.out_features}"
+
+
+class EnsembleMLP(nn.Module):
+    """A stack of :class:`EnsembleLinear` layers with an activation between them."""
+
+    def __init__(
+        self,
+        members: int,
+        in_features: int,
+        hidden_sizes: Sequence[int],
+        out_features: int,
+        activation: str = "relu",
+        generator: torch.Generator | None = None,
+    ) -> None:
+        super().__init__()
+        if activation not in ACTIVATIONS:
+            raise ValueError(f"unknown activation {activation!r}: choose one of {sorted(ACTIVATIONS)}")
+        sizes = [in_features, *hidden_sizes, out_features]
+        layers: list[nn.Module] = []
+        for i, (fan_in, fan_out) in enumerate(zip(sizes[:-1], sizes[1:])):
+            layers.append(EnsembleLinear(members, fan_in, fan_out, generator))
+            if i < len(sizes) - 2:
+                layers.append(ACTIVATIONS[activation]())
+        self.layers = nn.Sequential(*layers)
+        self.members = members
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        """Map ``[B, in]`` or ``[members, B, in]`` to ``[members, B, out]``."""
+        return self.layers(x)

@@ -1,0 +1,1 @@
+"""Kiln entry points (thin: parse config, call library code)."""

@@ -1,0 +1,103 @@
+"""Shared command-line plumbing: config checks before Hydra starts, and one-line errors.
+
+Hydra reports a bad override with several lines and exit code 1, after creating the run folder.
+Kiln checks every override first (each value of a sweep too) by composing the config itself, so
+a typo ends with one line, exit code 2, and no folder written.
+"""
+
+from __future__ import annotations
+
+import sys
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any, NoReturn, TypeVar
+
+from hydra import compose, initialize_config_dir
+from hydra.core.global_hydra import GlobalHydra
+from hydra.core.override_parser.overrides_parser import OverridesParser
+from hydra.errors import HydraException
+from omegaconf import OmegaConf
+from omegaconf.errors import OmegaConfBaseException
+
+from agents.errors import KilnError
+
+CONFIG_DIR = Path(__file__).resolve().parent.parent / "configs"
+EXIT_BAD_INPUT = 2
+T = TypeVar("T")
+
+
+def fail(message: str) -> NoReturn:
+    """Print ``kiln: error: <message>`` on one line and exit with code 2."""
+    print(f"kiln: error: {message}", file=sys.stderr, flush=True)
+    raise SystemExit(EXIT_BAD_INPUT)
+
+
+def guarded(fn: Callable[[], T]) -> T:
+    """Run ``fn``; a :class:`KilnError` becomes a one-line message and exit code 2."""
+    try:
+        return fn()
+    except KilnError as err:
+        fail(str(err))
+
+
+def _hydra_message(err: Exception, script: str) -> str:
+    text = f"{err} {err.__cause__ or ''}"
+    first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+    if "not in struct" in text or "Could not override" in text:
+        key = first.split("'")[1] if "'" in first else first
+        return f"unknown config key {key!r}: check the spelling; `python scripts/{script}.py --cfg job` prints every key"
+    if "Could not find" in text or "Could not load" in text:
+        return f"{first.rstrip('.')}: the preset does not exist; see the files under configs/ for the choices"
+    return f"{first} (see `python scripts/{script}.py --help`)"
+
+
+def compose_config(config_name: str, overrides: list[str]) -> dict[str, Any]:
+    """Compose ``configs/<config_name>.yaml`` with ``overrides`` into plain resolved data.
+
+    Raises:
+        KilnError: With a one-line message when an override names an unknown key or preset.
+    """
+    GlobalHydra.instance().clear()
+    try:
+        with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
+            cfg = compose(config_name=config_name, overrides=overrides)
+        return OmegaConf.to_container(cfg, resolve=True)  # type: ignore[return-value]
+    except (HydraException, OmegaConfBaseException) as err:
+        raise KilnError(_hydra_message(err, config_name)) from None
+    finally:
+        GlobalHydra.instance().clear()
+
+
+def expand_overrides(args: list[str]) -> list[list[str]]:
+    """The override lists to check: the first value of every sweep, then each other value in turn.
+
+    Hydra's own options (``-m``, ``--cfg``...) and ``hydra.*`` / ``hydra/...`` overrides are left out.
+    """
+    plain = [a for a in args if not a.startswith("-") and not a.startswith(("hydra.", "hydra/", "+hydra", "~hydra"))]
+    try:
+        parsed = OverridesParser.create().parse_overrides(plain)
+    except HydraException as err:
+        raise KilnError(f"cannot parse the overrides: {str(err).strip().splitlines()[0]}") from None
+    base: list[str] = []
+    choices: list[tuple[int, list[str]]] = []
+    for i, override in enumerate(parsed):
+        if override.is_sweep_override():
+            prefix = override.get_key_element()
+            values = [f"{prefix}={v}" for v in override.sweep_string_iterator()]
+            base.append(values[0])
+            choices.append((i, values[1:]))
+        else:
+            base.append(override.input_line or "")
+    variants = [base]
+    for i, rest in choices:
+        for value in rest:
+            variants.append(base[:i] + [value] + base[i + 1 :])
+    return variants
+
+
+def check_overrides(config_name: str, args: list[str], check: Callable[[dict[str, Any]], None]) -> None:
+    """Compose every variant of the command line and run ``check`` on it; exit 2 on the first problem."""
+    if any(a in ("--help", "-h", "--hydra-help", "--info") or a.startswith("--cfg") or a == "-c" for a in args):
+        return  # Hydra's own informational modes: let Hydra answer them.
+    for overrides in guarded(lambda: expand_overrides(args)):
+        guarded(lambda o=overrides: check(compose_config(config_name, o)))

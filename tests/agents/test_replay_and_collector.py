@@ -1,0 +1,81 @@
+"""Replay storage and the time-limit rule: truncation keeps bootstrapping, termination stops it.
+
+Source for the rule: Gymnasium's step API (terminated vs truncated), and DESIGN.md's note that
+Pendulum-v1 never terminates, only truncates at 200 steps (Gymnasium's registered max_episode_steps).
+"""
+
+import gymnasium as gym
+import numpy as np
+import torch
+from scipy import stats
+
+from agents.action_scale import ActionScale
+from agents.collector import Collector
+from agents.replay import ReplayBuffer
+
+
+class _Counter(gym.Env):
+    """Observation = step count; terminates when the count reaches ``end`` (if set)."""
+
+    observation_space = gym.spaces.Box(-np.inf, np.inf, (1,), np.float32)
+    action_space = gym.spaces.Box(-2.0, 2.0, (1,), np.float32)
+
+    def __init__(self, end=None):
+        self.end = end
+
+    def reset(self, *, seed=None, options=None):
+        super().reset(seed=seed)
+        self.t = 0
+        return np.array([0.0], np.float32), {}
+
+    def step(self, action):
+        self.t += 1
+        return np.array([float(self.t)], np.float32), float(action[0]), self.end is not None and self.t >= self.end, False, {}
+
+
+def _collect(env, steps):
+    replay = ReplayBuffer(100, 1, 1, torch.Generator().manual_seed(0))
+    collector = Collector(env, replay, ActionScale(env.action_space.low, env.action_space.high), seed=0)
+    ends = [collector.step(np.array([0.5], np.float32)) for _ in range(steps)]
+    return replay, ends
+
+
+def test_truncated_transition_keeps_real_next_obs_and_is_not_terminal():
+    env = gym.wrappers.TimeLimit(_Counter(), max_episode_steps=3)
+    replay, ends = _collect(env, 4)
+    # Step 3 hits the time limit: next_obs must be the real final observation (3), not the reset one (0).
+    assert replay.next_obs[2, 0].item() == 3.0
+    assert replay.terminated[2].item() == 0.0
+    assert ends[2] is not None and ends[2].length == 3
+    # Step 4 starts from the reset observation.
+    assert replay.obs[3, 0].item() == 0.0
+
+
+def test_terminated_transition_is_terminal():
+    replay, ends = _collect(gym.wrappers.TimeLimit(_Counter(end=2), max_episode_steps=50), 2)
+    assert replay.terminated.tolist()[:2] == [0.0, 1.0]
+    assert ends[1] is not None
+
+
+def test_actions_stored_in_agent_units_and_rescaled_for_the_env():
+    # Agent action 0.5 on bounds [−2, 2] is 1.0 in task units; the reward echoes the task action.
+    replay, _ = _collect(gym.wrappers.TimeLimit(_Counter(), max_episode_steps=10), 1)
+    assert replay.action[0, 0].item() == 0.5
+    assert replay.reward[0].item() == 1.0
+
+
+def test_ring_buffer_overwrites_oldest():
+    replay = ReplayBuffer(3, 1, 1, torch.Generator().manual_seed(0))
+    for i in range(5):
+        replay.add(np.array([i]), np.array([0.0]), float(i), np.array([i + 1]), False)
+    assert len(replay) == 3
+    assert sorted(replay.reward.tolist()) == [2.0, 3.0, 4.0]
+
+
+def test_sampling_is_uniform_chi_square():
+    # Uniform sampling: a chi-square goodness-of-fit test (scipy.stats.chisquare) on 20 slots.
+    replay = ReplayBuffer(20, 1, 1, torch.Generator().manual_seed(0))
+    for i in range(20):
+        replay.add(np.array([i]), np.array([0.0]), float(i), np.array([i]), False)
+    counts = np.bincount(torch.cat([replay.sample(500).reward for _ in range(40)]).long().numpy(), minlength=20)
+    assert stats.chisquare(counts).pvalue > 1e-3

@@ -1,0 +1,123 @@
+"""The soft actor-critic update against the published equations (Haarnoja et al. 2018, arXiv 1812.05905)."""
+
+import math
+
+import pytest
+import torch
+
+from agents.replay import Batch
+from agents.sac import SoftActorCritic
+from agents.settings import AgentSettings, TemperatureSettings
+
+
+def _agent(**temperature) -> SoftActorCritic:
+    settings = AgentSettings(hidden_sizes=(8,), temperature=TemperatureSettings(**temperature))
+    return SoftActorCritic(obs_dim=2, act_dim=1, settings=settings, generator=torch.Generator().manual_seed(0))
+
+
+class _FixedQ(torch.nn.Module):
+    """A stand-in target critic returning fixed per-member values [members, B]."""
+
+    def __init__(self, values):
+        super().__init__()
+        self.values = torch.tensor(values)
+
+    def forward(self, obs, action):
+        return self.values
+
+
+def test_critic_target_terminated_truncated_and_ongoing_by_hand():
+    # Eq. for the soft Bellman target (paper §4.2 / Algorithm 1, with twin target critics):
+    #   y = r + γ (1 − d) [min_k Q̄_k(s′, a′) − α log π(a′|s′)]
+    # Three rows: terminated (d = 1), cut by a time limit (stored with d = 0) and ongoing (d = 0).
+    agent = _agent(initial=0.5, tune=False)
+    agent.critic_target = _FixedQ([[3.0, 1.0, -2.0], [2.0, 4.0, -1.0]])
+    log_prob = torch.tensor([[-0.4], [0.2], [1.0]])
+    agent.actor.sample = lambda obs, generator=None: (torch.zeros(3, 1), log_prob, torch.zeros(3, 1))
+    batch = Batch(
+        obs=torch.zeros(3, 2),
+        action=torch.zeros(3, 1),
+        reward=torch.tensor([1.0, -1.0, 0.5]),
+        next_obs=torch.zeros(3, 2),
+        terminated=torch.tensor([1.0, 0.0, 0.0]),
+    )
+    y = agent.critic_target_value(batch)
+    # Hand arithmetic, γ = 0.99, α = 0.5:
+    #   row 0 terminated: y = 1.0
+    #   row 1 truncated:  min(1, 4) = 1;  1 − 0.5·0.2 = 0.9;   y = −1 + 0.99·0.9 = −0.109
+    #   row 2 ongoing:    min(−2, −1) = −2; −2 − 0.5·1.0 = −2.5; y = 0.5 + 0.99·(−2.5) = −1.975
+    torch.testing.assert_close(y, torch.tensor([1.0, -0.109, -1.975]))
+
+
+def test_polyak_update_is_tau_weighted_average():
+    # θ̄ ← τ θ + (1 − τ) θ̄ (paper, Algorithm 1), τ = 0.005 (Table 1).
+    agent = _agent()
+    with torch.no_grad():
+        for p in agent.critic.parameters():
+            p.add_(1.0)
+    before = [p.clone() for p in agent.critic_target.parameters()]
+    online = [p.clone() for p in agent.critic.parameters()]
+    agent.polyak_update()
+    for tp, old, new in zip(agent.critic_target.parameters(), before, online):
+        torch.testing.assert_close(tp, 0.005 * new + 0.995 * old)
+
+
+@pytest.mark.parametrize("log_prob_value,direction", [(2.0, +1), (-4.0, -1)])
+def test_temperature_moves_toward_the_target(log_prob_value, direction):
+    # Eq. 18: J(α) = E[−α log π − α H̄]. Entropy −log π below the target (log π = 2 → H = −2 < H̄ = −1)
+    # must raise α; entropy above it (H = 4 > −1) must lower α.
+    agent = _agent(initial=0.3, tune=True, target_entropy=-1.0)
+    before = agent.temperature.alpha().item()
+    loss = agent.temperature.loss(torch.full((16, 1), log_prob_value))
+    agent.temperature_opt.zero_grad()
+    loss.backward()
+    agent.temperature_opt.step()
+    after = agent.temperature.alpha().item()
+    assert math.copysign(1, after - before) == direction
+
+
+def test_temperature_loss_value_is_eq_18():
+    # J(α) = −α (log π + H̄) averaged over the batch: α = 0.3, log π = 2, H̄ = −1 → −0.3·(2 − 1) = −0.3.
+    agent = _agent(initial=0.3, tune=True, target_entropy=-1.0)
+    assert agent.temperature.loss(torch.full((5, 1), 2.0)).item() == pytest.approx(-0.3)
+
+
+def test_fixed_temperature_never_moves():
+    agent = _agent(initial=0.2, tune=False)
+    g = torch.Generator().manual_seed(1)
+    batch = Batch(torch.randn(32, 2, generator=g), torch.rand(32, 1, generator=g) * 2 - 1,
+                  torch.randn(32, generator=g), torch.randn(32, 2, generator=g), torch.zeros(32))  # fmt: skip
+    for _ in range(5):
+        agent.update(batch)
+    assert agent.temperature.alpha().item() == pytest.approx(0.2)
+
+
+def test_per_dimension_targets_give_one_alpha_per_dimension():
+    # With a per-dimension target list each dimension gets its own α (DESIGN.md config keys).
+    settings = AgentSettings(hidden_sizes=(8,), temperature=TemperatureSettings(target_entropy=[-1.0, 0.5]))
+    agent = SoftActorCritic(2, 2, settings, torch.Generator().manual_seed(0))
+    assert agent.temperature.alpha().shape == (2,)
+    # Dimension 0 has entropy below its target, dimension 1 above: α₀ rises, α₁ falls.
+    loss = agent.temperature.loss(torch.tensor([[2.0, -3.0]]).expand(8, 2))
+    agent.temperature_opt.zero_grad()
+    loss.backward()
+    agent.temperature_opt.step()
+    alpha = agent.temperature.alpha()
+    assert alpha[0] > 1.0 > alpha[1]
+
+
+def test_one_update_steps_critic_actor_and_targets():
+    # Algorithm 1: each gradient step updates the critics, the actor, α, then the target critics.
+    agent = _agent()
+    g = torch.Generator().manual_seed(2)
+    batch = Batch(torch.randn(64, 2, generator=g), torch.rand(64, 1, generator=g) * 2 - 1,
+                  torch.randn(64, generator=g), torch.randn(64, 2, generator=g), torch.zeros(64))  # fmt: skip
+    critic_before = [p.clone() for p in agent.critic.parameters()]
+    actor_before = [p.clone() for p in agent.actor.parameters()]
+    target_before = [p.clone() for p in agent.critic_target.parameters()]
+    metrics = agent.update(batch)
+    assert all(not torch.equal(a, b) for a, b in zip(critic_before, agent.critic.parameters()))
+    assert all(not torch.equal(a, b) for a, b in zip(actor_before, agent.actor.parameters()))
+    assert all(not torch.equal(a, b) for a, b in zip(target_before, agent.critic_target.parameters()))
+    assert set(metrics) >= {"critic/loss", "actor/entropy", "temperature/alpha", "critic/q_spread"}
+    assert all(p.requires_grad for p in agent.critic.parameters())  # unfrozen after the actor step
