@@ -50,8 +50,8 @@ def make_env(
                 f"(list them with gymnasium.pprint_registry()) or an env preset such as env=pendulum"
             ) from None
         raise ConfigError(f"cannot create env {env_id!r}: {err}") from None
-    except TypeError as err:
-        raise ConfigError(f"env {env_id!r} rejected its kwargs ({err}): fix env.kwargs") from None
+    except (TypeError, ValueError) as err:
+        raise ConfigError(f"env {env_id!r} rejected its arguments ({err}): fix env.kwargs") from None
     check_spaces(env, env_id)
     return env
 

@@ -1,0 +1,89 @@
+"""Through the real command line: train → saved policy → evaluate → JSON, and the TensorBoard record."""
+
+import json
+
+import pytest
+from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
+
+from tests.scripts.cli import TINY_RUN, run_script
+
+# Kiln's tag scheme (DESIGN.md, "TensorBoard tags").
+EXPECTED_TAGS = {
+    "return/train", "return/eval", "return/eval_std", "length/train",
+    "critic/loss", "critic/q_mean", "critic/q_spread", "critic/target_mean",
+    "actor/loss", "actor/entropy", "actor/log_std_mean",
+    "temperature/alpha", "temperature/target_entropy", "temperature/loss",
+    "speed/env_steps_per_s", "speed/updates_per_s", "bias/q_minus_return",
+    "final/return_eval", "final/entropy", "final/alpha",
+}  # fmt: skip
+
+
+@pytest.fixture(scope="module")
+def trained(tmp_path_factory):
+    work = tmp_path_factory.mktemp("e2e")
+    run_dir = work / "run"
+    proc = run_script("train", *TINY_RUN, f"hydra.run.dir={run_dir}", cwd=work, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    return work, run_dir, proc
+
+
+def test_train_reports_where_things_are(trained):
+    _, run_dir, proc = trained
+    assert f"tensorboard --logdir {run_dir}" in proc.stdout
+    assert str(run_dir / "policy") in proc.stdout
+    assert "2 deterministic episodes of Pendulum-v1 after 300 steps" in proc.stdout
+
+
+def test_run_folder_layout(trained):
+    _, run_dir, _ = trained
+    names = {p.name for p in run_dir.iterdir()}
+    assert {"config.yaml", "result.json", "policy"} <= names
+    assert any(n.startswith("events.out.tfevents") for n in names)
+    assert {p.name for p in (run_dir / "policy").iterdir()} == {"weights.safetensors", "spec.json"}
+    result = json.loads((run_dir / "result.json").read_text())
+    # Pendulum-v1 has a 1-D action: auto target entropy is −dim(A) = −1 (Table 1).
+    assert result["target_entropy"] == -1.0
+    assert [step for step, _ in result["eval_curve"]] == [150, 300]
+    # 200 updates: one per env step after the 100 warm-up steps (Table 1: one gradient step per env step).
+    assert result["updates"] == 200
+
+
+def test_tensorboard_tags_and_hparams(trained):
+    _, run_dir, _ = trained
+    acc = EventAccumulator(str(run_dir), size_guidance={"scalars": 0})
+    acc.Reload()
+    assert EXPECTED_TAGS <= set(acc.Tags()["scalars"])
+    assert [e.step for e in acc.Scalars("return/eval")] == [150, 300]
+    # The hparams plugin data sits in the run's own event file so the HParams view lists this run.
+    plugin = acc.PluginTagToContent("hparams")
+    assert "_hparams_/experiment" in plugin and "_hparams_/session_start_info" in plugin
+
+
+def test_evaluate_the_saved_policy(trained):
+    work, run_dir, _ = trained
+    proc = run_script("evaluate", f"policy={run_dir}", "episodes=3", "seed=5", cwd=work, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    out = run_dir / "evaluations" / "deterministic_seed5_3ep.json"
+    assert f"wrote    {out}" in proc.stdout
+    record = json.loads(out.read_text())
+    assert record["seeds"] == [5, 6, 7]
+    returns = [e["ret"] for e in record["episodes"]]
+    assert record["summary"]["return_mean"] == pytest.approx(sum(returns) / 3)
+    # Pendulum-v1 truncates at its registered 200 steps and never terminates (Gymnasium registry).
+    assert all(e["length"] == 200 and not e["terminated"] for e in record["episodes"])
+
+
+def test_evaluation_is_reproducible_and_stochastic_mode_differs(trained):
+    work, run_dir, _ = trained
+    paths = []
+    for mode in ("true", "false"):
+        out = work / f"eval_{mode}.json"
+        proc = run_script("evaluate", f"policy={run_dir}/policy", "episodes=2", f"deterministic={mode}",
+                          f"out={out}", cwd=work, timeout=300)  # fmt: skip
+        assert proc.returncode == 0, proc.stderr
+        paths.append(out)
+    det, sto = (json.loads(p.read_text()) for p in paths)
+    again = run_script("evaluate", f"policy={run_dir}/policy", "episodes=2", f"out={work}/again.json", cwd=work)
+    assert again.returncode == 0
+    assert json.loads((work / "again.json").read_text())["episodes"] == det["episodes"]
+    assert sto["mode"] == "stochastic" and sto["episodes"] != det["episodes"]
