@@ -128,6 +128,8 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
     scale = ActionScale(env.action_space.low, env.action_space.high)
     log = RunLog(run_dir)
     log.hyperparameters(_hyperparameters(cfg, target))
+    # Logged before the first update so that even a run stopped during warm-up can be grouped by target.
+    log.scalars({"temperature/target_entropy": sum(target)}, 0)
     progress = Progress(r.steps, r.progress)
     eval_seeds = evaluation_seeds(r.seed, r.eval_episodes)
     bias_seeds = evaluation_seeds(r.seed + 7919, r.bias_episodes)  # disjoint from eval_seeds

@@ -1,0 +1,41 @@
+"""Comparing training runs with honest statistics: IQM, stratified bootstrap CIs, performance
+profiles and probability of improvement (Agarwal et al. 2021, NeurIPS), read from TensorBoard
+event files and written as a report folder.
+
+Typical use::
+
+    runs = load_runs([Path("sweeps/entropy")])
+    comparison = summarise(runs, group_by="agent.temperature.target_entropy")
+    write_report(comparison, Path("sweeps/entropy/report"))
+"""
+
+from agents.compare.bootstrap import Interval, bootstrap_distribution, iqm_interval, percentile_interval
+from agents.compare.errors import CompareInputError
+from agents.compare.events import ScalarSeries, read_scalars
+from agents.compare.report import check_out_dir, default_out_dir, terminal_summary, write_report
+from agents.compare.runs import Run, find_run_dirs, load_run, load_runs
+from agents.compare.stats import iqm, performance_profile, probability_of_improvement
+from agents.compare.summary import Comparison, summarise
+
+__all__ = [
+    "CompareInputError",
+    "Comparison",
+    "Interval",
+    "Run",
+    "ScalarSeries",
+    "bootstrap_distribution",
+    "check_out_dir",
+    "default_out_dir",
+    "find_run_dirs",
+    "iqm",
+    "iqm_interval",
+    "load_run",
+    "load_runs",
+    "percentile_interval",
+    "performance_profile",
+    "probability_of_improvement",
+    "read_scalars",
+    "summarise",
+    "terminal_summary",
+    "write_report",
+]

@@ -1,0 +1,106 @@
+"""Compare training runs grouped by a config key and write a report folder.
+
+Example::
+
+    python scripts/compare.py sweeps/entropy --group-by agent.temperature.target_entropy
+
+Exit status: 0 on success, 2 for input that cannot be compared (one line on stderr saying why and
+what to do).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+from typing import NoReturn
+
+from agents.compare.errors import CompareInputError
+from agents.compare.grouping import TARGET_ENTROPY_KEY
+from agents.compare.report import check_out_dir, default_out_dir, terminal_summary, write_report
+from agents.compare.runs import load_runs
+from agents.compare.summary import summarise
+
+PROGRAM = "compare"
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with a one-line error, like every other input problem of this command."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(2, f"kiln: error: {message}; fix: see python scripts/compare.py --help\n")
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog=PROGRAM,
+        description="Compare Kiln runs grouped by a config key: IQM with bootstrap CIs, learning curves, "
+        "entropy and temperature, performance profiles and probability of improvement.",
+    )
+    parser.add_argument("paths", nargs="+", type=Path, metavar="DIR",
+                        help="sweep directories (searched for runs) and/or run directories")
+    parser.add_argument("--group-by", default=TARGET_ENTROPY_KEY, metavar="KEY",
+                        help="dotted config key to group runs by (default: %(default)s, by resolved value)")
+    parser.add_argument("--metric", default="return/eval", metavar="TAG",
+                        help="scalar tag to compare, higher is better (default: %(default)s)")
+    parser.add_argument("--step", type=int, default=None, metavar="N",
+                        help="env step to compare at (default: the last step every run reached)")
+    parser.add_argument("--out", type=Path, default=None, metavar="DIR",
+                        help="report folder (default: report/ inside the input folder)")
+    parser.add_argument("--resamples", type=int, default=2000, metavar="B",
+                        help="bootstrap resamples per interval (default: %(default)s)")
+    parser.add_argument("--confidence", type=float, default=0.95, metavar="C",
+                        help="two-sided confidence of every interval (default: %(default)s)")
+    parser.add_argument("--resample-seed", type=int, default=0, metavar="S",
+                        help="seed of the bootstrap random generator (default: %(default)s)")
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Runs the command.
+
+    Args:
+        argv: Arguments without the program name (default: the command line).
+
+    Returns:
+        The exit status.
+    """
+    parser = _parser()
+    args = parser.parse_args(argv)
+    if args.resamples < 1:
+        parser.error("--resamples must be at least 1")
+    if not 0.0 < args.confidence < 1.0:
+        parser.error("--confidence must lie strictly between 0 and 1, e.g. 0.95")
+    if args.step is not None and args.step < 0:
+        parser.error("--step must be 0 or more")
+    out_dir = args.out if args.out is not None else default_out_dir(args.paths)
+    try:
+        check_out_dir(out_dir)
+        skipped: list[Path] = []
+        runs = load_runs(args.paths, skipped)
+        notes = []
+        if skipped:
+            listed = ", ".join(str(path) for path in skipped[:3]) + (" and more" if len(skipped) > 3 else "")
+            notes.append(f"skipped {len(skipped)} folder(s) with config.yaml but no event files or "
+                         f"result.json yet: {listed}")
+        comparison = summarise(
+            runs,
+            group_by=args.group_by,
+            metric=args.metric,
+            step=args.step,
+            confidence=args.confidence,
+            n_resamples=args.resamples,
+            seed=args.resample_seed,
+            notes=notes,
+        )
+        write_report(comparison, out_dir)
+    except CompareInputError as error:
+        print(f"kiln: error: {error}", file=sys.stderr)
+        return 2
+    print(terminal_summary(comparison, out_dir))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

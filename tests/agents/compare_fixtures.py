@@ -1,0 +1,69 @@
+"""Builds fake run directories for the comparison tests: invented numbers, written with torch's
+SummaryWriter, OmegaConf and json exactly as the contract with the training loop describes."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+from omegaconf import OmegaConf
+from torch.utils.tensorboard import SummaryWriter
+
+
+def run_config(seed: int, target_entropy: Any, *, env_id: str = "Pendulum-v1", steps: int = 1000) -> dict:
+    """A small resolved run config in the shape the training loop writes."""
+    return {
+        "seed": seed,
+        "steps": steps,
+        "env": {"id": env_id, "name": env_id.split("-")[0].lower()},
+        "agent": {"temperature": {"tune": True, "initial": 1.0, "target_entropy": target_entropy, "lr": 3e-4}},
+    }
+
+
+def write_run(
+    directory: Path,
+    config: Mapping[str, Any],
+    scalars: Mapping[str, Sequence[tuple[int, float]]],
+    result: Mapping[str, Any] | None = None,
+) -> Path:
+    """Writes config.yaml, an event file holding ``scalars`` and, if given, result.json.
+
+    Args:
+        directory: The run directory (created).
+        config: Plain config data.
+        scalars: Tag → (step, value) pairs.
+        result: Contents of result.json, or None for an unfinished run.
+
+    Returns:
+        ``directory``.
+    """
+    directory.mkdir(parents=True, exist_ok=True)
+    OmegaConf.save(OmegaConf.create(dict(config)), directory / "config.yaml")
+    if scalars:
+        writer = SummaryWriter(log_dir=str(directory))
+        for tag, pairs in scalars.items():
+            for step, value in pairs:
+                writer.add_scalar(tag, value, step)
+        writer.close()
+    if result is not None:
+        (directory / "result.json").write_text(json.dumps(dict(result)), encoding="utf-8")
+    return directory
+
+
+def training_scalars(final_return: float, entropy: float, alpha: float, target: float,
+                     steps: Sequence[int] = (0, 250, 500, 750, 1000)) -> dict[str, list[tuple[int, float]]]:
+    """Invented, smoothly improving scalars ending exactly at the given final values.
+
+    Returns:
+        Tag → (step, value) pairs for return/eval, actor/entropy, temperature/alpha and
+        temperature/target_entropy.
+    """
+    last = steps[-1]
+    return {
+        "return/eval": [(s, final_return - 500.0 * (1 - s / last)) for s in steps],
+        "actor/entropy": [(s, entropy + 1.0 * (1 - s / last)) for s in steps],
+        "temperature/alpha": [(s, alpha * (1.0 + 9.0 * (1 - s / last))) for s in steps],
+        "temperature/target_entropy": [(s, target) for s in steps],
+    }
