@@ -95,9 +95,33 @@ def expand_overrides(args: list[str]) -> list[list[str]]:
     return variants
 
 
+def preset_sweep_params(config_name: str, args: list[str]) -> list[str]:
+    """The ``hydra.sweeper.params`` a sweep preset adds, as overrides, minus keys the command line sets."""
+    plain = [a for a in args if not a.startswith("-")]
+    composable = [a for a in plain if not a.lstrip("+~").startswith(("hydra.", "hydra/"))]
+    try:
+        parsed = OverridesParser.create().parse_overrides(composable)
+    except HydraException as err:
+        raise KilnError(f"cannot parse the overrides: {str(err).strip().splitlines()[0]}") from None
+    composable = [o.input_line or "" for o in parsed if not o.is_sweep_override()]
+    GlobalHydra.instance().clear()
+    try:
+        with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
+            cfg = compose(config_name=config_name, overrides=composable, return_hydra_config=True)
+        params = OmegaConf.to_container(cfg.hydra.sweeper.get("params") or {}, resolve=False)
+    except (HydraException, OmegaConfBaseException) as err:
+        raise KilnError(_hydra_message(err, config_name)) from None
+    finally:
+        GlobalHydra.instance().clear()
+    given = {a.split("=", 1)[0].lstrip("+~") for a in plain}
+    return [f"{key}={value}" for key, value in params.items() if key not in given]
+
+
 def check_overrides(config_name: str, args: list[str], check: Callable[[dict[str, Any]], None]) -> None:
-    """Compose every variant of the command line and run ``check`` on it; exit 2 on the first problem."""
+    """Compose every variant of the command line (sweep presets' values included) and run ``check``
+    on it; exit 2 on the first problem."""
     if any(a in ("--help", "-h", "--hydra-help", "--info") or a.startswith("--cfg") or a == "-c" for a in args):
         return  # Hydra's own informational modes: let Hydra answer them.
+    args = args + guarded(lambda: preset_sweep_params(config_name, args))
     for overrides in guarded(lambda: expand_overrides(args)):
         guarded(lambda o=overrides: check(compose_config(config_name, o)))
