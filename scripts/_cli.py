@@ -108,7 +108,8 @@ def preset_sweep_params(config_name: str, args: list[str]) -> list[str]:
     try:
         with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
             cfg = compose(config_name=config_name, overrides=composable, return_hydra_config=True)
-        params = OmegaConf.to_container(cfg.hydra.sweeper.get("params") or {}, resolve=False)
+        node = cfg.hydra.sweeper.get("params")
+        params = OmegaConf.to_container(node, resolve=False) if node else {}
     except (HydraException, OmegaConfBaseException) as err:
         raise KilnError(_hydra_message(err, config_name)) from None
     finally:
