@@ -87,3 +87,13 @@ def test_evaluation_is_reproducible_and_stochastic_mode_differs(trained):
     assert again.returncode == 0
     assert json.loads((work / "again.json").read_text())["episodes"] == det["episodes"]
     assert sto["mode"] == "stochastic" and sto["episodes"] != det["episodes"]
+
+
+def test_evaluate_records_video(trained):
+    # Gymnasium's RecordVideo writes one MP4 per episode (needs the [video] extra, installed by CI).
+    work, run_dir, _ = trained
+    out = work / "video_eval.json"
+    proc = run_script("evaluate", f"policy={run_dir}", "episodes=2", "video=true", f"out={out}", cwd=work)
+    assert proc.returncode == 0, proc.stderr
+    videos = sorted((work / "video_eval").glob("*.mp4"))
+    assert len(videos) == 2 and all(v.stat().st_size > 1000 for v in videos)
