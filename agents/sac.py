@@ -48,19 +48,23 @@ class SoftActorCritic(nn.Module):
         self.temperature_opt = torch.optim.Adam([self.temperature.log_alpha], lr=s.temperature.lr)
 
     @torch.no_grad()
-    def act(self, obs: np.ndarray, deterministic: bool) -> np.ndarray:
-        """Action in (−1, 1) for one observation: ``tanh(mean)`` or a policy sample."""
+    def act(self, obs: np.ndarray, deterministic: bool, generator: torch.Generator | None = None) -> np.ndarray:
+        """Action in (−1, 1) for one observation: ``tanh(mean)`` or a policy sample.
+
+        ``generator`` defaults to the training generator; evaluation passes its own so that how
+        often a run evaluates never changes what it learns.
+        """
         x = torch.as_tensor(obs, dtype=torch.float32).unsqueeze(0)
         if deterministic:
             return self.actor.deterministic(x)[0].numpy()
-        action, _, _ = self.actor.sample(x, self.generator)
+        action, _, _ = self.actor.sample(x, generator or self.generator)
         return action[0].numpy()
 
     @torch.no_grad()
-    def act_with_bonus(self, obs: np.ndarray) -> tuple[np.ndarray, float]:
-        """A policy sample for one observation and its entropy term α·log π(a|s)."""
+    def act_with_bonus(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, float]:
+        """A policy sample for one observation (drawn from ``generator``) and its entropy term α·log π(a|s)."""
         x = torch.as_tensor(obs, dtype=torch.float32).unsqueeze(0)
-        action, log_prob, _ = self.actor.sample(x, self.generator)
+        action, log_prob, _ = self.actor.sample(x, generator)
         return action[0].numpy(), float(self.temperature.bonus(log_prob)[0])
 
     def critic_target_value(self, batch: Batch) -> torch.Tensor:

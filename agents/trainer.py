@@ -122,6 +122,9 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
     OmegaConf.save(OmegaConf.create(cfg.raw), run_dir / CONFIG)
 
     generator = torch.Generator().manual_seed(r.seed)
+    # Evaluation and diagnostics sample from their own stream: evaluating more or less often must
+    # not change the training trajectory of a seed.
+    eval_generator = torch.Generator().manual_seed(r.seed + 1_000_003)
     warmup_rng = np.random.default_rng(r.seed)
     agent = SoftActorCritic(obs_dim, act_dim, cfg.agent, generator)
     replay = ReplayBuffer(cfg.agent.replay_capacity, obs_dim, act_dim, generator)
@@ -186,12 +189,12 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
                 window_start, window_steps, window_updates, window_update_time, metric_count = now, 0, 0, 0.0, 0
 
             if step % r.eval_every == 0 or step == r.steps:
-                episodes = run_episodes(eval_env, lambda o: scale.to_env(agent.act(o, eval_mode)), eval_seeds)
+                episodes = run_episodes(eval_env, lambda o: scale.to_env(agent.act(o, eval_mode, eval_generator)), eval_seeds)
                 last_eval = summarise(episodes)
                 curve.append([step, last_eval["return_mean"]])
                 log.scalars({"return/eval": last_eval["return_mean"], "return/eval_std": last_eval["return_std"]}, step)
                 if r.bias_episodes and total_updates:
-                    log.scalars({"bias/q_minus_return": q_minus_return(agent, eval_env, scale, bias_seeds)}, step)
+                    log.scalars({"bias/q_minus_return": q_minus_return(agent, eval_env, scale, bias_seeds, eval_generator)}, step)
                 progress.set({"eval": last_eval["return_mean"]})
                 progress.advance(step)
                 progress.line()
