@@ -24,6 +24,7 @@ from agents.collector import Collector
 from agents.config import RunConfig, parse_run_config
 from agents.diagnostics import q_minus_return
 from agents.evaluation import evaluation_seeds, run_episodes, summarise
+from agents.log_window import LogWindow
 from agents.policy_io import build_spec, save_policy
 from agents.progress import Progress
 from agents.replay import ReplayBuffer
@@ -35,11 +36,6 @@ from envs.make import make_env
 RESULT = "result.json"
 CONFIG = "config.yaml"
 POLICY = "policy"
-# Update diagnostics in the order SoftActorCritic.update returns them.
-_UPDATE_TAGS = (
-    "critic/loss", "critic/q_mean", "critic/q_spread", "critic/target_mean", "actor/loss",
-    "actor/entropy", "actor/log_std_mean", "temperature/alpha", "temperature/loss",
-)  # fmt: skip
 
 
 def _write_json_atomic(path: Path, data: Mapping[str, Any]) -> None:
@@ -102,7 +98,8 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
     Raises:
         ConfigError: If the config is invalid or the task cannot be driven by Kiln.
     """
-    cfg = parse_run_config(raw_config)
+    # One plain, resolved copy of the config: what is checked is what is saved beside the run.
+    cfg = parse_run_config(OmegaConf.to_container(OmegaConf.create(dict(raw_config)), resolve=True))
     run_dir = Path(run_dir)
     run_dir.mkdir(parents=True, exist_ok=True)
     if (run_dir / RESULT).exists():
@@ -139,12 +136,23 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
     eval_mode = r.eval_deterministic
 
     started = time.perf_counter()
-    window_start, window_steps, window_updates, window_update_time = started, 0, 0, 0.0
-    metric_sum, metric_count = torch.zeros(len(_UPDATE_TAGS)), 0
+    window = LogWindow()
     last_metrics: dict[str, float] = {}
     curve: list[list[float]] = []
     last_eval: dict[str, float] = {}
-    total_updates, total_update_time, credit = 0, 0.0, 0.0
+    credit = 0.0  # fractional updates owed, for updates_per_step below 1 or non-integer
+
+    def evaluate(step: int) -> None:
+        nonlocal last_eval
+        episodes = run_episodes(eval_env, lambda o: scale.to_env(agent.act(o, eval_mode, eval_generator)), eval_seeds)
+        last_eval = summarise(episodes)
+        curve.append([step, last_eval["return_mean"]])
+        log.scalars({"return/eval": last_eval["return_mean"], "return/eval_std": last_eval["return_std"]}, step)
+        if r.bias_episodes and window.total_updates:
+            bias = q_minus_return(agent, eval_env, scale, bias_seeds, eval_generator)
+            log.scalars({"bias/q_minus_return": bias}, step)
+        progress.set({"eval": last_eval["return_mean"]})
+
     collector = Collector(env, replay, scale, r.seed)
     try:
         for step in range(1, r.steps + 1):
@@ -153,6 +161,7 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
             else:
                 action = agent.act(collector.obs, deterministic=False)
             ended = collector.step(action)
+            window.add_step()
             if ended is not None:
                 log.scalars({"return/train": ended.ret, "length/train": ended.length}, step)
                 progress.set({"train": ended.ret})
@@ -161,55 +170,34 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
                 credit += r.updates_per_step
                 t0 = time.perf_counter()
                 while credit >= 1.0:
-                    values = agent.update(replay.sample(cfg.agent.batch_size))
-                    metric_sum += torch.stack([values[t] for t in _UPDATE_TAGS])
-                    metric_count += 1
-                    window_updates += 1
+                    window.add_update(agent.update(replay.sample(cfg.agent.batch_size)))
                     credit -= 1.0
-                window_update_time += time.perf_counter() - t0
-            window_steps += 1
+                window.add_update_time(time.perf_counter() - t0)
 
             if step % r.log_every == 0 or step == r.steps:
-                now = time.perf_counter()
-                speed = {
-                    "speed/env_steps_per_s": window_steps / max(now - window_start, 1e-9),
-                    # Updates per second of time spent updating: comparable with scripts/bench.py.
-                    "speed/updates_per_s": window_updates / window_update_time if window_update_time > 0 else 0.0,
-                }
+                speed, means = window.close()
                 log.scalars(speed, step)
-                if metric_count:
-                    last_metrics = dict(zip(_UPDATE_TAGS, (metric_sum / metric_count).tolist()))
-                    log.scalars(last_metrics, step)
-                    log.scalars({"temperature/target_entropy": sum(target)}, step)
-                    progress.set({"alpha": last_metrics["temperature/alpha"]})
-                total_updates += window_updates
-                total_update_time += window_update_time
+                if means is not None:
+                    last_metrics = means
+                    log.scalars({**means, "temperature/target_entropy": sum(target)}, step)
+                    progress.set({"alpha": means["temperature/alpha"]})
                 progress.set({"env/s": speed["speed/env_steps_per_s"], "upd/s": speed["speed/updates_per_s"] or None})
-                metric_sum.zero_()
-                window_start, window_steps, window_updates, window_update_time, metric_count = now, 0, 0, 0.0, 0
 
             if step % r.eval_every == 0 or step == r.steps:
-                episodes = run_episodes(eval_env, lambda o: scale.to_env(agent.act(o, eval_mode, eval_generator)), eval_seeds)
-                last_eval = summarise(episodes)
-                curve.append([step, last_eval["return_mean"]])
-                log.scalars({"return/eval": last_eval["return_mean"], "return/eval_std": last_eval["return_std"]}, step)
-                if r.bias_episodes and total_updates:
-                    log.scalars({"bias/q_minus_return": q_minus_return(agent, eval_env, scale, bias_seeds, eval_generator)}, step)
-                progress.set({"eval": last_eval["return_mean"]})
+                evaluate(step)
                 progress.advance(step)
                 progress.line()
             elif step % 100 == 0:
                 progress.advance(step)
+
+        wall = time.perf_counter() - started
+        env_record = {"id": cfg.env.id, "kwargs": cfg.env.kwargs, "max_episode_steps": eval_env.spec.max_episode_steps}
+        spec = build_spec(agent.actor, env.observation_space, env.action_space, env_record, cfg.raw)
+        save_policy(run_dir / POLICY, agent.actor, spec)
     finally:
         progress.close()
         env.close()
-
-    wall = time.perf_counter() - started
-    raw_plain = OmegaConf.to_container(OmegaConf.create(cfg.raw), resolve=True)
-    env_record = {"id": cfg.env.id, "kwargs": cfg.env.kwargs, "max_episode_steps": eval_env.spec.max_episode_steps}
-    spec = build_spec(agent.actor, env.observation_space, env.action_space, env_record, raw_plain)
-    save_policy(run_dir / POLICY, agent.actor, spec)
-    eval_env.close()
+        eval_env.close()
 
     final = {
         "return_eval": last_eval["return_mean"],
@@ -217,14 +205,8 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
         "entropy": _finite_or_none(last_metrics.get("actor/entropy")),
         "alpha": _finite_or_none(last_metrics.get("temperature/alpha", float(agent.temperature.alpha().mean()))),
     }
-    log.scalars(
-        {
-            "final/return_eval": final["return_eval"],
-            "final/entropy": final["entropy"] if final["entropy"] is not None else float("nan"),
-            "final/alpha": final["alpha"] if final["alpha"] is not None else float("nan"),
-        },
-        r.steps,
-    )
+    nan = float("nan")
+    log.scalars({f"final/{k}": nan if final[k] is None else final[k] for k in ("return_eval", "entropy", "alpha")}, r.steps)
     log.close()
     result = {
         "env_id": cfg.env.id,
@@ -236,9 +218,10 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
         "temperature_tuned": cfg.agent.temperature.tune,
         "final": final,
         "evaluation": last_eval,
+        "eval_deterministic": eval_mode,
         "eval_curve": curve,
-        "updates": total_updates,
-        "updates_per_s": total_updates / total_update_time if total_update_time else None,
+        "updates": window.total_updates,
+        "updates_per_s": window.total_updates / window.total_update_time if window.total_update_time else None,
         "wall_time_s": wall,
         "policy": POLICY,
     }
