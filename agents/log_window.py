@@ -38,13 +38,13 @@ class LogWindow:
         self._steps += 1
 
     def close(self) -> tuple[dict[str, float], dict[str, float] | None]:
-        """End the window: returns speed figures and mean diagnostics (``None`` without updates)."""
+        """End the window: returns speed figures and mean diagnostics (updates/s and diagnostics
+        only when the window had updates, else left out / ``None``)."""
         now = time.perf_counter()
-        speed = {
-            "speed/env_steps_per_s": self._steps / max(now - self._start, 1e-9),
+        speed = {"speed/env_steps_per_s": self._steps / max(now - self._start, 1e-9)}
+        if self._updates:
             # Updates per second of time spent updating: comparable with scripts/bench.py.
-            "speed/updates_per_s": self._updates / self._update_time if self._update_time > 0 else 0.0,
-        }
+            speed["speed/updates_per_s"] = self._updates / self._update_time
         means = dict(zip(UPDATE_TAGS, (self._sum / self._updates).tolist())) if self._updates else None
         self.total_updates += self._updates
         self.total_update_time += self._update_time

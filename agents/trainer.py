@@ -181,7 +181,7 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
                     last_metrics = means
                     log.scalars({**means, "temperature/target_entropy": sum(target)}, step)
                     progress.set({"alpha": means["temperature/alpha"]})
-                progress.set({"env/s": speed["speed/env_steps_per_s"], "upd/s": speed["speed/updates_per_s"] or None})
+                progress.set({"env/s": speed["speed/env_steps_per_s"], "upd/s": speed.get("speed/updates_per_s")})
 
             if step % r.eval_every == 0 or step == r.steps:
                 evaluate(step)

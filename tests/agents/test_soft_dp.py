@@ -8,53 +8,13 @@ import numpy as np
 import pytest
 from scipy.special import logsumexp, softmax
 
+from agents.book_gridworld import BOOK_DISCOUNT, BOOK_V_STAR, book_gridworld
 from agents.soft_dp import (
     log_sum_exp,
     soft_backward_pass,
     soft_value_iteration,
 )
 from envs.glaze_trial import DECIDE, EXPERIMENTAL, STANDARD, glaze_trial_mdp
-
-# Sutton & Barto, Reinforcement Learning: An Introduction, 2nd ed., Example 3.8, Figure 3.5 (the
-# optimal state values v* of the 5x5 gridworld, gamma = 0.9), as quoted in DESIGN.md.
-BOOK_V_STAR = np.array(
-    [
-        [22.0, 24.4, 22.0, 19.4, 17.5],
-        [19.8, 22.0, 19.8, 17.8, 16.0],
-        [17.8, 19.8, 17.8, 16.0, 14.4],
-        [16.0, 17.8, 16.0, 14.4, 13.0],
-        [14.4, 16.0, 14.4, 13.0, 11.7],
-    ]
-)
-BOOK_DISCOUNT = 0.9
-
-
-def book_gridworld() -> tuple[np.ndarray, np.ndarray]:
-    """Sutton & Barto Example 3.8: 5x5 grid, rows top to bottom, actions north, south, east, west.
-
-    From A = (0, 1) every action jumps to A' = (4, 1) with +10; from B = (0, 3) to B' = (2, 3) with +5;
-    a move off the grid leaves the state unchanged with -1; every other move pays 0.
-    """
-    size = 5
-    moves = [(-1, 0), (1, 0), (0, 1), (0, -1)]
-    transitions = np.zeros((size * size, 4, size * size))
-    reward = np.zeros((size * size, 4))
-    for row in range(size):
-        for col in range(size):
-            s = row * size + col
-            for a, (d_row, d_col) in enumerate(moves):
-                if (row, col) == (0, 1):
-                    transitions[s, a, 4 * size + 1] = 1.0
-                    reward[s, a] = 10.0
-                elif (row, col) == (0, 3):
-                    transitions[s, a, 2 * size + 3] = 1.0
-                    reward[s, a] = 5.0
-                elif 0 <= row + d_row < size and 0 <= col + d_col < size:
-                    transitions[s, a, (row + d_row) * size + col + d_col] = 1.0
-                else:
-                    transitions[s, a, s] = 1.0
-                    reward[s, a] = -1.0
-    return transitions, reward
 
 
 def test_hard_limit_reproduces_book_gridworld_v_star() -> None:
