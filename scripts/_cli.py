@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import sys
 from collections.abc import Callable
-from pathlib import Path
 from typing import Any, NoReturn, TypeVar
 
 from hydra import compose, initialize_config_dir
@@ -20,8 +19,8 @@ from omegaconf import OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 
 from agents.errors import KilnError
+from agents.presets import CONFIG_DIR, compose_config, hydra_message
 
-CONFIG_DIR = Path(__file__).resolve().parent.parent / "configs"
 EXIT_BAD_INPUT = 2
 T = TypeVar("T")
 
@@ -38,34 +37,6 @@ def guarded(fn: Callable[[], T]) -> T:
         return fn()
     except KilnError as err:
         fail(str(err))
-
-
-def _hydra_message(err: Exception, script: str) -> str:
-    text = f"{err} {err.__cause__ or ''}"
-    first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
-    if "not in struct" in text or "Could not override" in text:
-        key = first.split("'")[1] if "'" in first else first
-        return f"unknown config key {key!r}: check the spelling; `python scripts/{script}.py --cfg job` prints every key"
-    if "Could not find" in text or "Could not load" in text:
-        return f"{first.rstrip('.')}: the preset does not exist; see the files under configs/ for the choices"
-    return f"{first} (see `python scripts/{script}.py --help`)"
-
-
-def compose_config(config_name: str, overrides: list[str]) -> dict[str, Any]:
-    """Compose ``configs/<config_name>.yaml`` with ``overrides`` into plain resolved data.
-
-    Raises:
-        KilnError: With a one-line message when an override names an unknown key or preset.
-    """
-    GlobalHydra.instance().clear()
-    try:
-        with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
-            cfg = compose(config_name=config_name, overrides=overrides)
-        return OmegaConf.to_container(cfg, resolve=True)  # type: ignore[return-value]
-    except (HydraException, OmegaConfBaseException) as err:
-        raise KilnError(_hydra_message(err, config_name)) from None
-    finally:
-        GlobalHydra.instance().clear()
 
 
 def expand_overrides(args: list[str]) -> list[list[str]]:
@@ -111,7 +82,7 @@ def preset_sweep_params(config_name: str, args: list[str]) -> list[str]:
         node = cfg.hydra.sweeper.get("params")
         params = OmegaConf.to_container(node, resolve=False) if node else {}
     except (HydraException, OmegaConfBaseException) as err:
-        raise KilnError(_hydra_message(err, config_name)) from None
+        raise KilnError(hydra_message(err, config_name)) from None
     finally:
         GlobalHydra.instance().clear()
     given = {a.split("=", 1)[0].lstrip("+~") for a in plain}

@@ -12,7 +12,7 @@ import yaml
 
 from agents.sac import SoftActorCritic
 from agents.settings import AgentSettings, resolve_target_entropy
-from scripts._cli import CONFIG_DIR
+from agents.presets import CONFIG_DIR
 
 TABLE_1 = {
     "hidden_sizes": [256, 256],

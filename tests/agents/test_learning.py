@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 
 from agents.trainer import train
-from scripts._cli import compose_config
+from agents.presets import compose_config
 
 # Pendulum-v1 has no registered reward threshold; a mean return ≥ −200 over 10 deterministic episodes
 # is common practice (no source). Budget: the preset's 6 000 env steps (DESIGN.md "aim ≤ 6k").

@@ -1,0 +1,54 @@
+"""Check Kiln against exact answers and print the table; exit 1 if any check fails.
+
+    python scripts/verify.py                 # solver checks and short training runs (a few minutes)
+    python scripts/verify.py --quick         # solver checks only (seconds)
+    python scripts/verify.py --seed 3 --out verify.json
+
+Exit codes: 0 all checks passed, 1 a check failed, 2 bad arguments.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+from typing import NoReturn
+
+from scripts._cli import fail
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports a bad argument as one ``kiln: error:`` line (exit 2) instead of usage text."""
+
+    def error(self, message: str) -> NoReturn:
+        fail(f"{message} (see `python scripts/verify.py --help`)")
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Parse the arguments, run the checks, print the table; return the exit code."""
+    parser = _Parser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="solver checks only (seconds), no training")
+    parser.add_argument("--seed", type=int, default=0, help="seed of the training runs (default 0)")
+    parser.add_argument("--out", type=Path, help="also write the table as JSON to this file")
+    args = parser.parse_args(argv)
+    if args.seed < 0:
+        fail(f"--seed must be ≥ 0, got {args.seed}")
+    if args.out is not None and not args.out.parent.is_dir():
+        # Checked before the checks run, so minutes of training are not lost to a typo.
+        fail(f"--out {args.out}: folder {args.out.parent} does not exist; create it or pick another path")
+    if args.out is not None and args.out.is_dir():
+        fail(f"--out {args.out} is a folder; give a file name such as {args.out / 'verify.json'}")
+
+    from agents.verify import format_table, report_json, run_verify  # torch loads only past the checks
+
+    report = run_verify(args.quick, args.seed, say=lambda line: print(line, flush=True))
+    print(format_table(report), flush=True)
+    if args.out is not None:
+        args.out.write_text(json.dumps(report_json(report, args.quick, args.seed), indent=2, ensure_ascii=False))
+        print(f"wrote {args.out}")
+    return 0 if report.passed else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())
