@@ -132,9 +132,11 @@ def _compose(preset: str, overrides: Sequence[str], seed: int) -> dict[str, Any]
     return compose_config("train", [f"env={preset}", f"seed={seed}", *_QUIET, *overrides])
 
 
-def _train(config: dict[str, Any], run_dir: Path) -> tuple[dict[str, Any], SavedPolicy]:
+def _train(config: dict[str, Any], run_dir: Path) -> tuple[dict[str, Any], SavedPolicy, float]:
+    """Train through the library; return the result, the saved policy and the training wall time."""
+    started = time.perf_counter()
     result = train(config, run_dir)
-    return result, load_policy(run_dir / POLICY)
+    return result, load_policy(run_dir / POLICY), time.perf_counter() - started
 
 
 @torch.no_grad()
@@ -161,9 +163,7 @@ def bandit_fixed_alpha_check(run_dir: Path, seed: int = 0) -> AgentCheck:
     fixed = ["agent.temperature.tune=false", f"agent.temperature.initial={BANDIT_FIXED_ALPHA}"]
     config = _compose("damper_trim", fixed, seed)
     stiffness, target = _bandit_task(config)
-    started = time.perf_counter()
-    result, policy = _train(config, run_dir)
-    wall = time.perf_counter() - started
+    result, policy, wall = _train(config, run_dir)
     mu, sigma = _bandit_policy(policy)
     _, _, mean, std = squashed_gaussian_statistics(mu, sigma, stiffness, target)
     best = bandit_squashed_gaussian_optimum(stiffness, target, BANDIT_FIXED_ALPHA)
@@ -194,9 +194,7 @@ def bandit_tuned_alpha_check(run_dir: Path, seed: int = 0) -> AgentCheck:
     overrides = [f"agent.temperature.target_entropy={BANDIT_TARGET_ENTROPY}", "log.every=100"]
     config = _compose("damper_trim", overrides, seed)
     stiffness, target = _bandit_task(config)
-    started = time.perf_counter()
-    result, policy = _train(config, run_dir)
-    wall = time.perf_counter() - started
+    result, policy, wall = _train(config, run_dir)
     mu, sigma = _bandit_policy(policy)
     _, entropy, _, _ = squashed_gaussian_statistics(mu, sigma, stiffness, target)
     alpha = float(result["final"]["alpha"])
@@ -244,9 +242,7 @@ def lqr_check(run_dir: Path, seed: int = 0, rollouts: int = 4000) -> AgentCheck:
     config = _compose("firing_hold", fixed, seed)
     model = LinearQuadraticModel(**config["env"]["kwargs"])
     discount = float(config["agent"]["discount"])
-    started = time.perf_counter()
-    result, policy = _train(config, run_dir)
-    wall = time.perf_counter() - started
+    result, policy, wall = _train(config, run_dir)
     exact = soft_lq_solution(model, LQR_ALPHA, discount)
 
     grid = lqr_state_grid()
