@@ -33,9 +33,9 @@ class SquashedGaussianActor(nn.Module):
     Args:
         obs_dim: Length of the flat observation.
         act_dim: Number of action dimensions.
-        hidden_sizes: Widths of the hidden layers.
-        activation: Name of the hidden activation (see :data:`agents.nets.ACTIVATIONS`).
-        log_std_bounds: ``(low, high)`` for the log standard deviation of ``u``.
+        layer_widths: Widths of the hidden layers.
+        nonlinearity: Name of the hidden nonlinearity (see :data:`agents.nets.NONLINEARITIES`).
+        log_std_soft_limits: ``(low, high)`` for the log standard deviation of ``u``.
         generator: Source of the initial weights (owned by the run).
     """
 
@@ -43,20 +43,20 @@ class SquashedGaussianActor(nn.Module):
         self,
         obs_dim: int,
         act_dim: int,
-        hidden_sizes: Sequence[int],
-        activation: str,
-        log_std_bounds: tuple[float, float],
+        layer_widths: Sequence[int],
+        nonlinearity: str,
+        log_std_soft_limits: tuple[float, float],
         generator: torch.Generator | None = None,
     ) -> None:
         super().__init__()
-        low, high = float(log_std_bounds[0]), float(log_std_bounds[1])
+        low, high = float(log_std_soft_limits[0]), float(log_std_soft_limits[1])
         if not low < high:
-            raise ValueError(f"log_std_bounds must be increasing, got {log_std_bounds}")
+            raise ValueError(f"log_std_soft_limits must be increasing, got {log_std_soft_limits}")
         self.obs_dim, self.act_dim = obs_dim, act_dim
-        self.hidden_sizes, self.activation = tuple(int(h) for h in hidden_sizes), activation
+        self.layer_widths, self.nonlinearity = tuple(int(h) for h in layer_widths), nonlinearity
         self.log_std_low, self.log_std_high = low, high
         # One network with 2·act_dim outputs: the first half is the mean, the second the raw log-std.
-        self.body = EnsembleMLP(1, obs_dim, hidden_sizes, 2 * act_dim, activation, generator)
+        self.body = EnsembleMLP(1, obs_dim, layer_widths, 2 * act_dim, nonlinearity, generator)
 
     def forward(self, obs: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
         """Return ``(mean, log_std)`` of ``u``, each ``[B, act_dim]``."""

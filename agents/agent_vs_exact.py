@@ -24,7 +24,8 @@ import torch
 from agents.presets import compose_config
 from agents.policy_io import SavedPolicy, load_policy
 from agents.soft_rollouts import actor_mean_action, actor_soft_returns
-from agents.trainer import POLICY, train
+from agents.run_folder import POLICY
+from agents.trainer import train
 from envs.bandit_solution import (
     bandit_alpha_for_entropy,
     bandit_squashed_gaussian_optimum,
@@ -160,7 +161,7 @@ def bandit_fixed_alpha_check(run_dir: Path, seed: int = 0) -> AgentCheck:
     Returns:
         Measurements ``mean`` and ``std`` (relative errors, tolerance 5 %).
     """
-    fixed = ["agent.temperature.tune=false", f"agent.temperature.initial={BANDIT_FIXED_ALPHA}"]
+    fixed = ["agent.temperature.mode=fixed", f"agent.temperature.start={BANDIT_FIXED_ALPHA}"]
     config = _compose("damper_trim", fixed, seed)
     stiffness, target = _bandit_task(config)
     result, policy, wall = _train(config, run_dir)
@@ -173,7 +174,7 @@ def bandit_fixed_alpha_check(run_dir: Path, seed: int = 0) -> AgentCheck:
         _relative("std", f"{tag}: std of a", _BANDIT_SOURCE, best.std, std, BANDIT_FIXED_TOLERANCE),
     )
     details = {"mu": mu, "sigma": sigma, "mu_exact": best.pre_squash_mean, "sigma_exact": best.pre_squash_std}
-    return AgentCheck("bandit, fixed α", measurements, result["steps"], result["updates"], wall, details)
+    return AgentCheck("bandit, fixed α", measurements, result.steps, result.updates, wall, details)
 
 
 def bandit_tuned_alpha_check(run_dir: Path, seed: int = 0) -> AgentCheck:
@@ -197,7 +198,7 @@ def bandit_tuned_alpha_check(run_dir: Path, seed: int = 0) -> AgentCheck:
     result, policy, wall = _train(config, run_dir)
     mu, sigma = _bandit_policy(policy)
     _, entropy, _, _ = squashed_gaussian_statistics(mu, sigma, stiffness, target)
-    alpha = float(result["final"]["alpha"])
+    alpha = float(result.final.alpha)
     best = bandit_alpha_for_entropy(stiffness, target, BANDIT_TARGET_ENTROPY, family="squashed_gaussian")
     tag = f"bandit target entropy {BANDIT_TARGET_ENTROPY:g}"
     measurements = (
@@ -205,7 +206,7 @@ def bandit_tuned_alpha_check(run_dir: Path, seed: int = 0) -> AgentCheck:
         _relative("entropy", f"{tag}: entropy of π", _BANDIT_SOURCE, best.entropy, entropy, BANDIT_TUNED_TOLERANCE),
     )
     details = {"mu": mu, "sigma": sigma, "mu_exact": best.pre_squash_mean, "sigma_exact": best.pre_squash_std}
-    return AgentCheck("bandit, tuned α", measurements, result["steps"], result["updates"], wall, details)
+    return AgentCheck("bandit, tuned α", measurements, result.steps, result.updates, wall, details)
 
 
 def lqr_state_grid(half_width: float = 2.0, points: int = 9) -> np.ndarray:
@@ -238,7 +239,7 @@ def lqr_check(run_dir: Path, seed: int = 0, rollouts: int = 4000) -> AgentCheck:
     Returns:
         Measurements ``mean_action`` (tolerance 10 %) and ``soft_return`` (tolerance 5 %).
     """
-    fixed = ["agent.temperature.tune=false", f"agent.temperature.initial={LQR_ALPHA}"]
+    fixed = ["agent.temperature.mode=fixed", f"agent.temperature.start={LQR_ALPHA}"]
     config = _compose("firing_hold", fixed, seed)
     model = LinearQuadraticModel(**config["env"]["kwargs"])
     discount = float(config["agent"]["discount"])
@@ -274,4 +275,4 @@ def lqr_check(run_dir: Path, seed: int = 0, rollouts: int = 4000) -> AgentCheck:
         "gain_0": float(exact.gain[0, 0]),
         "gain_1": float(exact.gain[0, 1]),
     }
-    return AgentCheck("LQR, fixed α", measurements, result["steps"], result["updates"], wall, details)
+    return AgentCheck("LQR, fixed α", measurements, result.steps, result.updates, wall, details)

@@ -11,13 +11,15 @@ from dataclasses import dataclass
 from typing import Any
 
 from agents.errors import ConfigError
-from agents.settings import AgentSettings
+from agents.renamed import refuse_old_keys
+from agents.settings import TEMPERATURE_MODES, AgentSettings
+from agents.streams import LARGEST_EPISODES, LARGEST_SEED
 
 # Every key a run config may hold, per section; anything else is a typo we refuse.
 _SECTIONS: dict[str, set[str]] = {
     "": {"seed", "steps", "threads", "deterministic", "env", "agent", "collect", "evaluate", "log"},
     "env": {"id", "name", "max_episode_steps", "kwargs"},
-    "collect": {"warmup_steps", "updates_per_step"},
+    "collect": {"warmup_steps", "updates_per_env_step"},
     "evaluate": {"every", "episodes", "deterministic", "bias_episodes"},
     "log": {"every", "progress"},
 }
@@ -42,7 +44,7 @@ class RunSettings:
     threads: int
     deterministic: bool
     warmup_steps: int
-    updates_per_step: float
+    updates_per_env_step: float
     eval_every: int
     eval_episodes: int
     eval_deterministic: bool
@@ -62,6 +64,8 @@ class RunConfig:
 
 
 def _check_keys(section: str, data: Mapping[str, Any]) -> None:
+    if section:
+        refuse_old_keys(data, section)
     known = _SECTIONS[section]
     unknown = sorted(set(data) - known)
     if unknown:
@@ -71,12 +75,14 @@ def _check_keys(section: str, data: Mapping[str, Any]) -> None:
         )
 
 
-def _int(data: Mapping[str, Any], key: str, path: str, minimum: int) -> int:
+def _int(data: Mapping[str, Any], key: str, path: str, minimum: int, maximum: int | None = None) -> int:
     value = data.get(key)
     if isinstance(value, bool) or not isinstance(value, int):
         raise ConfigError(f"{path} must be an integer, got {value!r}: set {path}=<integer ≥ {minimum}>")
     if value < minimum:
         raise ConfigError(f"{path} must be ≥ {minimum}, got {value}: set {path}=<integer ≥ {minimum}>")
+    if maximum is not None and value > maximum:
+        raise ConfigError(f"{path} must be ≤ {maximum}, got {value}: set {path}=<integer from {minimum} to {maximum}>")
     return value
 
 
@@ -121,7 +127,7 @@ def parse_run_config(raw: Mapping[str, Any]) -> RunConfig:
 
     agent_raw = raw.get("agent")
     if not isinstance(agent_raw, Mapping):
-        raise ConfigError("config section agent is missing: choose a preset, e.g. agent=sac")
+        raise ConfigError("config section agent is missing: choose a preset, e.g. agent=published")
     agent = AgentSettings.from_mapping(agent_raw)
     _check_agent(agent)
 
@@ -129,16 +135,16 @@ def parse_run_config(raw: Mapping[str, Any]) -> RunConfig:
     if progress not in {"auto", "bar", "lines", "off"}:
         raise ConfigError(f"log.progress must be auto, bar, lines or off, got {progress!r}")
     run = RunSettings(
-        seed=_int(raw, "seed", "seed", 0),
+        seed=_int(raw, "seed", "seed", 0, LARGEST_SEED),
         steps=_int(raw, "steps", "steps", 1),
         threads=_int(raw, "threads", "threads", 1),
         deterministic=bool(raw.get("deterministic", False)),
         warmup_steps=_int(collect, "warmup_steps", "collect.warmup_steps", 0),
-        updates_per_step=_positive(collect.get("updates_per_step"), "collect.updates_per_step"),
+        updates_per_env_step=_positive(collect.get("updates_per_env_step"), "collect.updates_per_env_step"),
         eval_every=_int(evaluate, "every", "evaluate.every", 1),
-        eval_episodes=_int(evaluate, "episodes", "evaluate.episodes", 1),
+        eval_episodes=_int(evaluate, "episodes", "evaluate.episodes", 1, LARGEST_EPISODES),
         eval_deterministic=bool(evaluate.get("deterministic", True)),
-        bias_episodes=_int(evaluate, "bias_episodes", "evaluate.bias_episodes", 0),
+        bias_episodes=_int(evaluate, "bias_episodes", "evaluate.bias_episodes", 0, LARGEST_EPISODES),
         log_every=_int(log, "every", "log.every", 1),
         progress=progress,
     )
@@ -146,12 +152,16 @@ def parse_run_config(raw: Mapping[str, Any]) -> RunConfig:
 
 
 def _check_agent(a: AgentSettings) -> None:
-    for name in ("critic_lr", "actor_lr"):
-        _positive(getattr(a, name), f"agent.{name}")
+    _positive(a.actor.lr, "agent.actor.lr")
+    _positive(a.critic.lr, "agent.critic.lr")
     _positive(a.temperature.lr, "agent.temperature.lr")
-    _positive(a.temperature.initial, "agent.temperature.initial")
-    for name in ("batch_size", "replay_capacity", "critics"):
-        value = getattr(a, name)
+    _positive(a.temperature.start, "agent.temperature.start")
+    if a.temperature.mode not in TEMPERATURE_MODES:
+        raise ConfigError(
+            f"agent.temperature.mode must be tuned or fixed, got {a.temperature.mode!r}: "
+            "set agent.temperature.mode=tuned (toward target_entropy) or fixed (α stays at start)"
+        )
+    for name, value in (("batch_size", a.batch_size), ("replay_capacity", a.replay_capacity), ("critic.count", a.critic.count)):
         if isinstance(value, bool) or not isinstance(value, int) or value < 1:
             raise ConfigError(f"agent.{name} must be a positive integer, got {value!r}: set agent.{name}=<integer ≥ 1>")
     if a.batch_size > a.replay_capacity:
@@ -161,14 +171,16 @@ def _check_agent(a: AgentSettings) -> None:
         )
     if not 0.0 <= a.discount < 1.0:
         raise ConfigError(f"agent.discount must be in [0, 1), got {a.discount}")
-    if not 0.0 < a.target_smoothing <= 1.0:
-        raise ConfigError(f"agent.target_smoothing must be in (0, 1], got {a.target_smoothing}")
-    if not a.hidden_sizes or any(h < 1 for h in a.hidden_sizes):
-        raise ConfigError(f"agent.hidden_sizes must be positive widths, got {list(a.hidden_sizes)}")
-    low, high = a.log_std_bounds
+    if not 0.0 < a.critic.target_smoothing <= 1.0:
+        raise ConfigError(f"agent.critic.target_smoothing must be in (0, 1], got {a.critic.target_smoothing}")
+    if not a.layer_widths or any(h < 1 for h in a.layer_widths):
+        raise ConfigError(f"agent.layer_widths must be positive widths, got {list(a.layer_widths)}")
+    low, high = a.actor.log_std_soft_limits
     if not low < high:
-        raise ConfigError(f"agent.log_std_bounds must be [low, high] with low < high, got {list(a.log_std_bounds)}")
-    from agents.nets import ACTIVATIONS
+        raise ConfigError(
+            f"agent.actor.log_std_soft_limits must be [low, high] with low < high, got {list(a.actor.log_std_soft_limits)}"
+        )
+    from agents.nets import NONLINEARITIES
 
-    if a.activation not in ACTIVATIONS:
-        raise ConfigError(f"agent.activation={a.activation!r} is unknown: choose one of {sorted(ACTIVATIONS)}")
+    if a.nonlinearity not in NONLINEARITIES:
+        raise ConfigError(f"agent.nonlinearity={a.nonlinearity!r} is unknown: choose one of {sorted(NONLINEARITIES)}")

@@ -1,4 +1,4 @@
-"""Soft Q-functions: ``critics`` networks as one module with a leading ensemble axis."""
+"""Soft Q-functions: ``critic.count`` networks as one module with a leading ensemble axis."""
 
 from __future__ import annotations
 
@@ -16,8 +16,8 @@ class SoftQEnsemble(nn.Module):
     Args:
         obs_dim: Length of the flat observation.
         act_dim: Number of action dimensions (actions in the agent's (−1, 1) units).
-        hidden_sizes: Widths of the hidden layers.
-        activation: Name of the hidden activation.
+        layer_widths: Widths of the hidden layers.
+        nonlinearity: Name of the hidden nonlinearity.
         members: Ensemble size (2 gives the twin critics of the published method).
         generator: Source of the initial weights (owned by the run).
     """
@@ -26,14 +26,14 @@ class SoftQEnsemble(nn.Module):
         self,
         obs_dim: int,
         act_dim: int,
-        hidden_sizes: Sequence[int],
-        activation: str,
+        layer_widths: Sequence[int],
+        nonlinearity: str,
         members: int = 2,
         generator: torch.Generator | None = None,
     ) -> None:
         super().__init__()
         self.members = members
-        self.body = EnsembleMLP(members, obs_dim + act_dim, hidden_sizes, 1, activation, generator)
+        self.body = EnsembleMLP(members, obs_dim + act_dim, layer_widths, 1, nonlinearity, generator)
 
     def forward(self, obs: torch.Tensor, action: torch.Tensor) -> torch.Tensor:
         """Return every member's estimate, ``[members, B]``."""

@@ -8,8 +8,8 @@ import torch
 
 # Update diagnostics in the order SoftActorCritic.update returns them.
 UPDATE_TAGS = (
-    "critic/loss", "critic/q_mean", "critic/q_spread", "critic/target_mean", "actor/loss",
-    "actor/entropy", "actor/log_std_mean", "temperature/alpha", "temperature/loss",
+    "critic/td_mse", "critic/q_mean", "critic/q_spread", "critic/target_mean", "actor/objective",
+    "actor/entropy_nats", "actor/log_std_mean", "temperature/value", "temperature/objective",
 )  # fmt: skip
 
 

@@ -14,7 +14,7 @@ from collections.abc import Sequence
 import torch
 from torch import nn
 
-ACTIVATIONS: dict[str, type[nn.Module]] = {
+NONLINEARITIES: dict[str, type[nn.Module]] = {
     "relu": nn.ReLU,
     "tanh": nn.Tanh,
     "elu": nn.ELU,
@@ -57,26 +57,26 @@ class EnsembleLinear(nn.Module):
 
 
 class EnsembleMLP(nn.Module):
-    """A stack of :class:`EnsembleLinear` layers with an activation between them."""
+    """A stack of :class:`EnsembleLinear` layers with a nonlinearity between them."""
 
     def __init__(
         self,
         members: int,
         in_features: int,
-        hidden_sizes: Sequence[int],
+        layer_widths: Sequence[int],
         out_features: int,
-        activation: str = "relu",
+        nonlinearity: str = "relu",
         generator: torch.Generator | None = None,
     ) -> None:
         super().__init__()
-        if activation not in ACTIVATIONS:
-            raise ValueError(f"unknown activation {activation!r}: choose one of {sorted(ACTIVATIONS)}")
-        sizes = [in_features, *hidden_sizes, out_features]
+        if nonlinearity not in NONLINEARITIES:
+            raise ValueError(f"unknown nonlinearity {nonlinearity!r}: choose one of {sorted(NONLINEARITIES)}")
+        sizes = [in_features, *layer_widths, out_features]
         layers: list[nn.Module] = []
         for i, (fan_in, fan_out) in enumerate(zip(sizes[:-1], sizes[1:])):
             layers.append(EnsembleLinear(members, fan_in, fan_out, generator))
             if i < len(sizes) - 2:
-                layers.append(ACTIVATIONS[activation]())
+                layers.append(NONLINEARITIES[nonlinearity]())
         self.layers = nn.Sequential(*layers)
         self.members = members
 

@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import shutil
 import tempfile
 from dataclasses import dataclass
@@ -24,10 +23,14 @@ from safetensors.torch import load_file, save_file
 from agents.action_scale import ActionScale
 from agents.actor import SquashedGaussianActor
 from agents.errors import PolicyFolderError
+from agents.nets import EnsembleLinear
+from agents.run_folder import POLICY, replace_folder_atomic, write_text_atomic
 from agents.version import KILN_VERSION
 
 FORMAT = "kiln-policy"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
+ARCHITECTURE = "kiln-squashed-gaussian-mlp"
+ARCHITECTURE_VERSION = 1
 WEIGHTS = "weights.safetensors"
 SPEC = "spec.json"
 
@@ -60,6 +63,51 @@ class SavedPolicy:
         return self.scale.to_env(a[0].numpy())
 
 
+def _linear_layers(actor: SquashedGaussianActor) -> list[EnsembleLinear]:
+    return [m for m in actor.body.layers if isinstance(m, EnsembleLinear)]
+
+
+def actor_block(actor: SquashedGaussianActor) -> dict[str, Any]:
+    """The ``actor`` block of ``spec.json``: enough to rebuild the controller without Kiln."""
+    layers = _linear_layers(actor)
+    low, high = actor.log_std_low, actor.log_std_high
+    return {
+        "architecture": ARCHITECTURE,
+        "architecture_version": ARCHITECTURE_VERSION,
+        "observation_size": actor.obs_dim,
+        "action_size": actor.act_dim,
+        "layer_widths": list(actor.layer_widths),
+        "nonlinearity": actor.nonlinearity,
+        "log_std_soft_limits": [low, high],
+        "weight_layout": {
+            "orientation": "y = x @ W + b, with x a row vector [batch, in], W [in, out], b [out]",
+            "layer_order": "tensors are applied in the order listed; the nonlinearity follows every layer but the last",
+            "tensors": [
+                {
+                    "layer": i,
+                    "weight": f"layers.{i}.weight",
+                    "weight_shape": [layer.in_features, layer.out_features],
+                    "bias": f"layers.{i}.bias",
+                    "bias_shape": [layer.out_features],
+                    "role": "output" if i == len(layers) - 1 else "hidden",
+                }
+                for i, layer in enumerate(layers)
+            ],
+            "output_split": (
+                f"the last layer gives 2 x {actor.act_dim} numbers: the first {actor.act_dim} are the mean m "
+                f"of the pre-squash Gaussian u, the last {actor.act_dim} a raw log-std r"
+            ),
+            "log_std": (
+                "log_std = low + softplus(high - softplus(high - r) - low), with low, high = log_std_soft_limits"
+            ),
+            "action": (
+                "deterministic: a = tanh(m); stochastic: a = tanh(m + exp(log_std) * e), e ~ N(0, I); "
+                "task units: low_a + (a + 1) / 2 * (high_a - low_a) with action_space's bounds"
+            ),
+        },
+    }
+
+
 def build_spec(
     actor: SquashedGaussianActor,
     observation_space: Any,
@@ -83,17 +131,18 @@ def build_spec(
             "low": _bounds_to_json(action_space.low),
             "high": _bounds_to_json(action_space.high),
         },
-        "network": {
-            "kind": "squashed-gaussian-mlp",
-            "obs_dim": actor.obs_dim,
-            "act_dim": actor.act_dim,
-            "hidden_sizes": list(actor.hidden_sizes),
-            "activation": actor.activation,
-            "log_std_bounds": [actor.log_std_low, actor.log_std_high],
-            "outputs": "first act_dim: mean of u; last act_dim: raw log-std of u (soft-clamped); action = tanh(u) rescaled to action_space",
-        },
+        "actor": actor_block(actor),
         "config": config,
     }
+
+
+def actor_tensors(actor: SquashedGaussianActor) -> dict[str, torch.Tensor]:
+    """The actor's weights under the names and shapes ``spec.json`` documents (member axis dropped)."""
+    tensors = {}
+    for i, layer in enumerate(_linear_layers(actor)):
+        tensors[f"layers.{i}.weight"] = layer.weight.detach()[0].contiguous().clone()
+        tensors[f"layers.{i}.bias"] = layer.bias.detach()[0, 0].contiguous().clone()
+    return tensors
 
 
 def save_policy(folder: Path, actor: SquashedGaussianActor, spec: dict[str, Any]) -> Path:
@@ -102,17 +151,9 @@ def save_policy(folder: Path, actor: SquashedGaussianActor, spec: dict[str, Any]
     folder.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{folder.name}-", dir=folder.parent))
     try:
-        tensors = {k: v.detach().contiguous().clone() for k, v in actor.state_dict().items()}
-        save_file(tensors, str(tmp / WEIGHTS), metadata={"format": FORMAT, "kiln_version": KILN_VERSION})
-        (tmp / SPEC).write_text(json.dumps(spec, indent=2, sort_keys=False))
-        if folder.exists():
-            old = folder.with_name(f".{folder.name}-replaced")
-            shutil.rmtree(old, ignore_errors=True)
-            os.replace(folder, old)
-            os.replace(tmp, folder)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, folder)
+        save_file(actor_tensors(actor), str(tmp / WEIGHTS), metadata={"format": FORMAT, "kiln_version": KILN_VERSION})
+        write_text_atomic(tmp / SPEC, json.dumps(spec, indent=2, sort_keys=False))
+        replace_folder_atomic(tmp, folder)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
@@ -126,8 +167,8 @@ def resolve_policy_folder(path: Path) -> Path:
         raise PolicyFolderError(f"no such folder {path}: pass a run folder or its policy/ folder")
     if (path / SPEC).exists() or (path / WEIGHTS).exists():
         return path
-    if (path / "policy").is_dir():
-        return path / "policy"
+    if (path / POLICY).is_dir():
+        return path / POLICY
     raise PolicyFolderError(
         f"{path} holds no saved policy: pass a run folder that contains policy/, or a folder with {SPEC} and {WEIGHTS}"
     )
@@ -152,30 +193,44 @@ def load_policy(path: Path) -> SavedPolicy:
         raise PolicyFolderError(f"{folder / SPEC} is not valid JSON ({err.msg}, line {err.lineno})") from None
     if spec.get("format") != FORMAT:
         raise PolicyFolderError(f"{folder / SPEC} is not a Kiln policy spec (format={spec.get('format')!r})")
-    if spec.get("format_version", 0) > FORMAT_VERSION:
+    version = spec.get("format_version", 0)
+    if version > FORMAT_VERSION:
         raise PolicyFolderError(
-            f"{folder} was saved in policy format {spec['format_version']}, newer than this Kiln reads ({FORMAT_VERSION}): upgrade Kiln"
+            f"{folder} was saved in policy format {version}, newer than this Kiln reads ({FORMAT_VERSION}): upgrade Kiln"
+        )
+    if version < FORMAT_VERSION:
+        raise PolicyFolderError(
+            f"{folder} was saved in policy format {version}, before the weight layout was recorded: "
+            f"retrain it, or load it with the Kiln version that saved it ({spec.get('kiln_version')})"
         )
     try:
-        net = spec["network"]
+        block = spec["actor"]
+        if block.get("architecture") != ARCHITECTURE or int(block.get("architecture_version", 0)) > ARCHITECTURE_VERSION:
+            raise PolicyFolderError(
+                f"{folder / SPEC} describes actor {block.get('architecture')!r} version "
+                f"{block.get('architecture_version')}, which this Kiln cannot rebuild: upgrade Kiln"
+            )
         actor = SquashedGaussianActor(
-            int(net["obs_dim"]),
-            int(net["act_dim"]),
-            [int(h) for h in net["hidden_sizes"]],
-            str(net["activation"]),
-            (float(net["log_std_bounds"][0]), float(net["log_std_bounds"][1])),
+            int(block["observation_size"]),
+            int(block["action_size"]),
+            [int(h) for h in block["layer_widths"]],
+            str(block["nonlinearity"]),
+            (float(block["log_std_soft_limits"][0]), float(block["log_std_soft_limits"][1])),
         )
         space = spec["action_space"]
         scale = ActionScale(_bounds_from_json(space["low"]), _bounds_from_json(space["high"]))
-    except (KeyError, TypeError, ValueError, IndexError) as err:
+    except (KeyError, TypeError, ValueError, IndexError, AttributeError) as err:
         raise PolicyFolderError(f"{folder / SPEC} is incomplete or malformed ({err!r}): re-save the policy") from None
     try:
         tensors = load_file(str(folder / WEIGHTS))
     except (SafetensorError, OSError) as err:
         raise PolicyFolderError(f"{folder / WEIGHTS} cannot be read ({err}): re-save the policy") from None
-    expected = actor.state_dict()
+    expected = actor_tensors(actor)
     if set(tensors) != set(expected) or any(tensors[k].shape != expected[k].shape for k in expected):
         raise PolicyFolderError(f"{folder / WEIGHTS} does not match the network in {SPEC}: the two files are from different policies")
-    actor.load_state_dict(tensors)
+    with torch.no_grad():
+        for i, layer in enumerate(_linear_layers(actor)):
+            layer.weight.copy_(tensors[f"layers.{i}.weight"].unsqueeze(0))
+            layer.bias.copy_(tensors[f"layers.{i}.bias"].reshape(1, 1, -1))
     actor.eval()
     return SavedPolicy(actor=actor, scale=scale, spec=spec)

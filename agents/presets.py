@@ -16,6 +16,7 @@ from omegaconf import OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 
 from agents.errors import KilnError
+from agents.renamed import renamed_message, renamed_preset_message
 
 CONFIG_DIR = Path(__file__).resolve().parent.parent / "configs"
 
@@ -24,8 +25,14 @@ def hydra_message(err: Exception, script: str) -> str:
     """One line for a Hydra composition error, with the fix."""
     text = f"{err} {err.__cause__ or ''}"
     first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+    renamed = renamed_preset_message(text)
+    if renamed is not None:
+        return renamed
     if "not in struct" in text or "Could not override" in text:
         key = first.split("'")[1] if "'" in first else first
+        renamed = renamed_message(key)
+        if renamed is not None:
+            return renamed
         return f"unknown config key {key!r}: check the spelling; `python scripts/{script}.py --cfg job` prints every key"
     if "Could not find" in text or "Could not load" in text:
         return f"{first.rstrip('.')}: the preset does not exist; see the files under configs/ for the choices"

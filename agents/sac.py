@@ -16,7 +16,7 @@ from torch import nn
 from agents.actor import SquashedGaussianActor
 from agents.critic import SoftQEnsemble
 from agents.replay import Batch
-from agents.settings import AgentSettings, resolve_target_entropy
+from agents.settings import AgentSettings
 from agents.temperature import Temperature
 
 
@@ -27,24 +27,31 @@ class SoftActorCritic(nn.Module):
         obs_dim: Length of the flat observation.
         act_dim: Number of action dimensions (actions in (−1, 1)).
         settings: Hyper-parameters.
+        target_entropy: The resolved entropy target(s) H̄ (one, or one per action dimension), from
+            :func:`agents.settings.resolve_target_entropy`, called once per run.
         generator: The run's torch generator: initial weights and every policy sample come from it.
     """
 
-    def __init__(self, obs_dim: int, act_dim: int, settings: AgentSettings, generator: torch.Generator) -> None:
+    def __init__(
+        self,
+        obs_dim: int,
+        act_dim: int,
+        settings: AgentSettings,
+        target_entropy: tuple[float, ...],
+        generator: torch.Generator,
+    ) -> None:
         super().__init__()
         self.settings = settings
         self.generator = generator
         s = settings
-        self.actor = SquashedGaussianActor(obs_dim, act_dim, s.hidden_sizes, s.activation, s.log_std_bounds, generator)
-        self.critic = SoftQEnsemble(obs_dim, act_dim, s.hidden_sizes, s.activation, s.critics, generator)
-        self.critic_target = copy.deepcopy(self.critic).requires_grad_(False)
-        self.temperature = Temperature(
-            resolve_target_entropy(s.temperature.target_entropy, act_dim),
-            s.temperature.initial,
-            s.temperature.tune,
+        self.actor = SquashedGaussianActor(
+            obs_dim, act_dim, s.layer_widths, s.nonlinearity, s.actor.log_std_soft_limits, generator
         )
-        self.actor_opt = torch.optim.Adam(self.actor.parameters(), lr=s.actor_lr)
-        self.critic_opt = torch.optim.Adam(self.critic.parameters(), lr=s.critic_lr)
+        self.critic = SoftQEnsemble(obs_dim, act_dim, s.layer_widths, s.nonlinearity, s.critic.count, generator)
+        self.critic_target = copy.deepcopy(self.critic).requires_grad_(False)
+        self.temperature = Temperature(target_entropy, s.temperature.start, s.temperature.tuned)
+        self.actor_opt = torch.optim.Adam(self.actor.parameters(), lr=s.actor.lr)
+        self.critic_opt = torch.optim.Adam(self.critic.parameters(), lr=s.critic.lr)
         self.temperature_opt = torch.optim.Adam([self.temperature.log_alpha], lr=s.temperature.lr)
 
     @torch.no_grad()
@@ -101,7 +108,7 @@ class SoftActorCritic(nn.Module):
 
         # 3. Temperature (Eq. 18), on the same actions.
         temperature_loss = self.temperature.loss(log_prob)
-        if self.temperature.tune:
+        if self.temperature.tuned:
             self.temperature_opt.zero_grad(set_to_none=True)
             temperature_loss.backward()
             self.temperature_opt.step()
@@ -112,21 +119,23 @@ class SoftActorCritic(nn.Module):
         with torch.no_grad():
             spread = q.max(dim=0).values - q.min(dim=0).values
             return {
-                "critic/loss": critic_loss.detach() / q.shape[0],
+                # Mean squared TD error over members and batch (the critic loss is half of it, summed
+                # over members).
+                "critic/td_mse": 2.0 * critic_loss.detach() / q.shape[0],
                 "critic/q_mean": q.mean(),
                 "critic/q_spread": spread.mean(),
                 "critic/target_mean": target.mean(),
-                "actor/loss": actor_loss.detach(),
-                "actor/entropy": -log_prob.detach().sum(dim=-1).mean(),
+                "actor/objective": actor_loss.detach(),
+                "actor/entropy_nats": -log_prob.detach().sum(dim=-1).mean(),
                 "actor/log_std_mean": log_std.detach().mean(),
-                "temperature/alpha": self.temperature.alpha().mean(),
-                "temperature/loss": temperature_loss.detach(),
+                "temperature/value": self.temperature.alpha().mean(),
+                "temperature/objective": temperature_loss.detach(),
             }
 
     @torch.no_grad()
     def polyak_update(self) -> None:
         """Move each target weight a fraction τ toward its online weight."""
-        tau = self.settings.target_smoothing
+        tau = self.settings.critic.target_smoothing
         for target_p, p in zip(self.critic_target.parameters(), self.critic.parameters()):
             target_p.lerp_(p, tau)
 

@@ -20,18 +20,18 @@ class Temperature(nn.Module):
 
     Args:
         target_entropy: The entropy target(s) H̄ in nats: one number, or one per action dimension.
-        initial: Starting α (the fixed value when ``tune`` is false).
-        tune: Learn log α when true; keep α constant otherwise.
+        start: α at step 0 (the value it keeps when ``tuned`` is false).
+        tuned: Learn log α when true; keep α constant otherwise.
     """
 
-    def __init__(self, target_entropy: Sequence[float], initial: float, tune: bool) -> None:
+    def __init__(self, target_entropy: Sequence[float], start: float, tuned: bool) -> None:
         super().__init__()
-        if initial <= 0:
-            raise ValueError(f"initial temperature must be > 0, got {initial}")
+        if start <= 0:
+            raise ValueError(f"the starting temperature must be > 0, got {start}")
         targets = torch.tensor([float(t) for t in target_entropy], dtype=torch.float32)
         self.register_buffer("target", targets)
-        self.log_alpha = nn.Parameter(torch.full_like(targets, math.log(initial)), requires_grad=tune)
-        self.tune = tune
+        self.log_alpha = nn.Parameter(torch.full_like(targets, math.log(start)), requires_grad=tuned)
+        self.tuned = tuned
 
     @property
     def groups(self) -> int:

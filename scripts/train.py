@@ -19,7 +19,8 @@ from omegaconf import DictConfig, OmegaConf
 
 from agents.config import parse_run_config
 from agents.settings import resolve_target_entropy
-from agents.trainer import POLICY, train
+from agents.run_folder import RunFolder, RunResult
+from agents.trainer import train
 from envs.make import make_env
 from scripts._cli import check_overrides, guarded
 
@@ -34,22 +35,26 @@ def check_run_config(raw: dict[str, Any]) -> None:
         env.close()
 
 
-def report(run_dir: Path, result: dict[str, Any]) -> None:
+def report(run_dir: Path, result: RunResult) -> None:
     """Tell the user where everything is and how the final evaluation went."""
-    if result.get("skipped"):
+    if result.skipped:
         print(f"{run_dir} already holds a finished run (result.json); left as it is.")
         return
-    ev = result["evaluation"]
-    det = "deterministic" if result.get("eval_deterministic", True) else "stochastic"
+    ev, seeds = result.evaluation, result.evaluation_seeds
+    det = "deterministic" if result.eval_deterministic else "stochastic"
+    episodes = f"{len(seeds)} {det} episode{'s' if len(seeds) != 1 else ''}"
     print(f"\nrun folder   {run_dir}")
     print(f"TensorBoard  tensorboard --logdir {run_dir}")
-    print(f"policy       {run_dir / POLICY}   (evaluate: python scripts/evaluate.py policy={run_dir})")
+    print(f"policy       {RunFolder(run_dir).policy_path}")
     print(
-        f"evaluation   {ev['episodes']} {det} episodes of {result['env_id']} after {result['steps']} steps: "
-        f"return {ev['return_mean']:.1f} ± {ev['return_std']:.1f} (min {ev['return_min']:.1f}, max {ev['return_max']:.1f})"
+        f"evaluation   {episodes} of {result.env_id} after {result.steps} steps (reset seeds "
+        f"{seeds[0]}..{seeds[-1]}): return {ev['return_mean']:.1f} ± {ev['return_std']:.1f} "
+        f"(min {ev['return_min']:.1f}, max {ev['return_max']:.1f})"
     )
-    ups = result.get("updates_per_s")
-    print(f"time         {result['wall_time_s']:.0f} s wall, {result['updates']} updates" + (f" at {ups:.0f}/s" if ups else ""))
+    mode = "" if result.eval_deterministic else " deterministic=false"
+    print(f"reproduce    python scripts/evaluate.py policy={run_dir}{mode}   (same seeds, same episodes)")
+    ups = result.updates_per_s
+    print(f"time         {result.wall_time_s:.0f} s wall, {result.updates} updates" + (f" at {ups:.0f}/s" if ups else ""))
 
 
 @hydra.main(config_path="../configs", config_name="train", version_base="1.3")
@@ -58,7 +63,7 @@ def _hydra_entry(cfg: DictConfig) -> float:
     raw = OmegaConf.to_container(cfg, resolve=True)
     result = guarded(lambda: train(raw, run_dir))
     report(run_dir, result)
-    return float(result["final"]["return_eval"])
+    return float(result.final.return_eval)
 
 
 def main() -> None:

@@ -18,7 +18,7 @@ def _saved(tmp_path):
     obs_space = gym.spaces.Box(-np.inf, np.inf, (3,), np.float32)
     act_space = gym.spaces.Box(np.array([-2.0, 0.0], np.float32), np.array([2.0, 1.0], np.float32))
     spec = build_spec(actor, obs_space, act_space, {"id": "Pendulum-v1", "kwargs": {}, "max_episode_steps": 200},
-                      {"agent": {"activation": "tanh"}})  # fmt: skip
+                      {"agent": {"nonlinearity": "tanh"}})  # fmt: skip
     return actor, save_policy(tmp_path / "policy", actor, spec)
 
 
@@ -39,7 +39,7 @@ def test_files_are_safetensors_and_json_with_spaces(tmp_path):
     spec = json.loads((folder / SPEC).read_text())
     assert spec["observation_space"]["low"] == ["-inf"] * 3
     assert spec["action_space"]["high"] == [2.0, 1.0]
-    assert spec["network"]["hidden_sizes"] == [16, 16]
+    assert spec["actor"]["layer_widths"] == [16, 16]
     assert spec["env"]["id"] == "Pendulum-v1"
     assert "kiln_version" in spec
 
@@ -65,7 +65,7 @@ def test_missing_folder(tmp_path):
 def test_weights_from_another_network_are_refused(tmp_path):
     _, folder = _saved(tmp_path)
     spec = json.loads((folder / SPEC).read_text())
-    spec["network"]["hidden_sizes"] = [32, 32]
+    spec["actor"]["layer_widths"] = [32, 32]
     (folder / SPEC).write_text(json.dumps(spec))
     with pytest.raises(PolicyFolderError, match="does not match"):
         load_policy(folder)

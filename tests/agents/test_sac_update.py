@@ -7,12 +7,13 @@ import torch
 
 from agents.replay import Batch
 from agents.sac import SoftActorCritic
-from agents.settings import AgentSettings, TemperatureSettings
+from agents.settings import AgentSettings, TemperatureSettings, resolve_target_entropy
 
 
 def _agent(**temperature) -> SoftActorCritic:
-    settings = AgentSettings(hidden_sizes=(8,), temperature=TemperatureSettings(**temperature))
-    return SoftActorCritic(obs_dim=2, act_dim=1, settings=settings, generator=torch.Generator().manual_seed(0))
+    settings = AgentSettings(layer_widths=(8,), temperature=TemperatureSettings(**temperature))
+    target = resolve_target_entropy(settings.temperature.target_entropy, 1)
+    return SoftActorCritic(2, 1, settings, target, torch.Generator().manual_seed(0))
 
 
 class _FixedQ(torch.nn.Module):
@@ -30,7 +31,7 @@ def test_critic_target_terminated_truncated_and_ongoing_by_hand():
     # Eq. for the soft Bellman target (paper §4.2 / Algorithm 1, with twin target critics):
     #   y = r + γ (1 − d) [min_k Q̄_k(s′, a′) − α log π(a′|s′)]
     # Three rows: terminated (d = 1), cut by a time limit (stored with d = 0) and ongoing (d = 0).
-    agent = _agent(initial=0.5, tune=False)
+    agent = _agent(start=0.5, mode="fixed")
     agent.critic_target = _FixedQ([[3.0, 1.0, -2.0], [2.0, 4.0, -1.0]])
     log_prob = torch.tensor([[-0.4], [0.2], [1.0]])
     agent.actor.sample = lambda obs, generator=None: (torch.zeros(3, 1), log_prob, torch.zeros(3, 1))
@@ -66,7 +67,7 @@ def test_polyak_update_is_tau_weighted_average():
 def test_temperature_moves_toward_the_target(log_prob_value, direction):
     # Eq. 18: J(α) = E[−α log π − α H̄]. Entropy −log π below the target (log π = 2 → H = −2 < H̄ = −1)
     # must raise α; entropy above it (H = 4 > −1) must lower α.
-    agent = _agent(initial=0.3, tune=True, target_entropy=-1.0)
+    agent = _agent(start=0.3, mode="tuned", target_entropy=-1.0)
     before = agent.temperature.alpha().item()
     loss = agent.temperature.loss(torch.full((16, 1), log_prob_value))
     agent.temperature_opt.zero_grad()
@@ -78,12 +79,12 @@ def test_temperature_moves_toward_the_target(log_prob_value, direction):
 
 def test_temperature_loss_value_is_eq_18():
     # J(α) = −α (log π + H̄) averaged over the batch: α = 0.3, log π = 2, H̄ = −1 → −0.3·(2 − 1) = −0.3.
-    agent = _agent(initial=0.3, tune=True, target_entropy=-1.0)
+    agent = _agent(start=0.3, mode="tuned", target_entropy=-1.0)
     assert agent.temperature.loss(torch.full((5, 1), 2.0)).item() == pytest.approx(-0.3)
 
 
 def test_fixed_temperature_never_moves():
-    agent = _agent(initial=0.2, tune=False)
+    agent = _agent(start=0.2, mode="fixed")
     g = torch.Generator().manual_seed(1)
     batch = Batch(torch.randn(32, 2, generator=g), torch.rand(32, 1, generator=g) * 2 - 1,
                   torch.randn(32, generator=g), torch.randn(32, 2, generator=g), torch.zeros(32))  # fmt: skip
@@ -94,8 +95,8 @@ def test_fixed_temperature_never_moves():
 
 def test_per_dimension_targets_give_one_alpha_per_dimension():
     # With a per-dimension target list each dimension gets its own α (DESIGN.md config keys).
-    settings = AgentSettings(hidden_sizes=(8,), temperature=TemperatureSettings(target_entropy=[-1.0, 0.5]))
-    agent = SoftActorCritic(2, 2, settings, torch.Generator().manual_seed(0))
+    settings = AgentSettings(layer_widths=(8,), temperature=TemperatureSettings(target_entropy=[-1.0, 0.5]))
+    agent = SoftActorCritic(2, 2, settings, (-1.0, 0.5), torch.Generator().manual_seed(0))
     assert agent.temperature.alpha().shape == (2,)
     # Dimension 0 has entropy below its target, dimension 1 above: α₀ rises, α₁ falls.
     loss = agent.temperature.loss(torch.tensor([[2.0, -3.0]]).expand(8, 2))
@@ -119,5 +120,5 @@ def test_one_update_steps_critic_actor_and_targets():
     assert all(not torch.equal(a, b) for a, b in zip(critic_before, agent.critic.parameters()))
     assert all(not torch.equal(a, b) for a, b in zip(actor_before, agent.actor.parameters()))
     assert all(not torch.equal(a, b) for a, b in zip(target_before, agent.critic_target.parameters()))
-    assert set(metrics) >= {"critic/loss", "actor/entropy", "temperature/alpha", "critic/q_spread"}
+    assert set(metrics) >= {"critic/td_mse", "actor/entropy_nats", "temperature/value", "critic/q_spread"}
     assert all(p.requires_grad for p in agent.critic.parameters())  # unfrozen after the actor step

@@ -19,6 +19,6 @@ def run_script(name: str, *args: str, cwd: Path, timeout: float = 600) -> subpro
 # A run small enough for seconds: the smallest settings that still exercise every part of the loop.
 TINY_RUN = (
     "steps=300", "collect.warmup_steps=100", "evaluate.every=150", "evaluate.episodes=2",
-    "evaluate.bias_episodes=1", "log.every=100", "agent.hidden_sizes=[16,16]", "agent.batch_size=32",
+    "evaluate.bias_episodes=1", "log.every=100", "agent.layer_widths=[16,16]", "agent.batch_size=32",
     "agent.replay_capacity=300",
 )  # fmt: skip

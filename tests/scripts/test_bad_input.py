@@ -24,8 +24,8 @@ def _assert_one_line_error(proc, *phrases):
         ("env.id=NoSuchTask-v0", ["unknown env id"]),
         ("env=no_such_preset", ["env/no_such_preset"]),
         ("env.id=CartPole-v1", ["Discrete action space"]),
-        ("agent.critic_lr=0", ["agent.critic_lr", "positive"]),
-        ("agent.actor_lr=-1e-3", ["agent.actor_lr"]),
+        ("agent.critic.lr=0", ["agent.critic.lr", "positive"]),
+        ("agent.actor.lr=-1e-3", ["agent.actor.lr"]),
         ("agent.temperature.lr=0", ["agent.temperature.lr"]),
         ("agent.batch_size=0", ["agent.batch_size"]),
         ("steps=0", ["steps must be"]),
@@ -33,8 +33,23 @@ def _assert_one_line_error(proc, *phrases):
         ("agent.batch_size=512", ["larger than agent.replay_capacity"]),
         ("no_such_key=1", ["unknown config key", "no_such_key"]),
         ("agent.no_such_key=1", ["unknown config key"]),
-        ("+agent.extra=1", ["unknown agent key"]),
+        ("+agent.extra=1", ["unknown config key agent.extra"]),
         ("agent.temperature.target_entropy=[1,2,3]", ["3 entries", "1 dimensions"]),
+        ("agent.temperature.mode=sometimes", ["agent.temperature.mode", "tuned or fixed"]),
+        ("seed=1000003", ["seed must be ≤"]),
+        # Renamed keys and values: one line naming the new name (DESIGN.md "Names").
+        ("agent.hidden_sizes=[8,8]", ["agent.hidden_sizes is an old name", "agent.layer_widths"]),
+        ("agent.activation=tanh", ["agent.nonlinearity"]),
+        ("agent.critic_lr=1e-3", ["agent.critic_lr is an old name", "agent.critic.lr"]),
+        ("agent.actor_lr=1e-3", ["agent.actor.lr"]),
+        ("agent.log_std_bounds=[-5,2]", ["agent.actor.log_std_soft_limits"]),
+        ("agent.critics=3", ["agent.critic.count"]),
+        ("agent.target_smoothing=0.01", ["agent.critic.target_smoothing"]),
+        ("agent.temperature.tune=false", ["agent.temperature.mode"]),
+        ("agent.temperature.initial=0.1", ["agent.temperature.start"]),
+        ("agent.temperature.target_entropy=auto", ["auto is an old name", "minus_action_dims"]),
+        ("collect.updates_per_step=2", ["collect.updates_per_env_step"]),
+        ("agent=sac", ["agent=sac is an old name", "agent=published"]),
     ],
 )
 def test_train_rejects_bad_input_before_writing(tmp_path, override, phrases):
@@ -45,8 +60,8 @@ def test_train_rejects_bad_input_before_writing(tmp_path, override, phrases):
 
 
 def test_bad_value_inside_a_sweep_is_caught_before_any_job(tmp_path):
-    proc = run_script("train", "-m", "seed=0,1", "agent.actor_lr=3e-4,-1", cwd=tmp_path, timeout=120)
-    _assert_one_line_error(proc, "agent.actor_lr")
+    proc = run_script("train", "-m", "seed=0,1", "agent.actor.lr=3e-4,-1", cwd=tmp_path, timeout=120)
+    _assert_one_line_error(proc, "agent.actor.lr")
     assert list(tmp_path.iterdir()) == []
 
 

@@ -10,9 +10,9 @@ from tests.scripts.cli import TINY_RUN, run_script
 # Kiln's tag scheme (DESIGN.md, "TensorBoard tags").
 EXPECTED_TAGS = {
     "return/train", "return/eval", "return/eval_std", "length/train",
-    "critic/loss", "critic/q_mean", "critic/q_spread", "critic/target_mean",
-    "actor/loss", "actor/entropy", "actor/log_std_mean",
-    "temperature/alpha", "temperature/target_entropy", "temperature/loss",
+    "critic/td_mse", "critic/q_mean", "critic/q_spread", "critic/target_mean",
+    "actor/objective", "actor/entropy_nats", "actor/log_std_mean",
+    "temperature/value", "temperature/target_entropy", "temperature/objective",
     "speed/env_steps_per_s", "speed/updates_per_s", "bias/q_minus_return",
     "final/return_eval", "final/entropy", "final/alpha",
 }  # fmt: skip

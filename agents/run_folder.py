@@ -1,0 +1,211 @@
+"""The run folder: its file names, atomic writes, setting aside an unfinished attempt, the result record.
+
+Every module that reads or writes a run's files imports the names and writers from here, so the
+layout is stated once:
+
+    <run>/config.yaml               the resolved config of the run
+    <run>/events.out.tfevents.*     TensorBoard scalars and the run's hyper-parameters
+    <run>/policy/                   the saved policy (see agents.policy_io)
+    <run>/evaluations/*.json        records written by the evaluate command
+    <run>/result.json               written last: its presence marks a finished run
+    <run>/unfinished-<n>/           what an interrupted earlier attempt left behind
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import secrets
+import shutil
+from collections.abc import Mapping
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+CONFIG = "config.yaml"
+RESULT = "result.json"
+POLICY = "policy"
+EVALUATIONS = "evaluations"
+EVENTS_PREFIX = "events.out.tfevents"
+UNFINISHED_PREFIX = "unfinished-"
+
+
+def _fsync_folder(folder: Path) -> None:
+    # A rename is durable only once the folder's entry is on disk too.
+    fd = os.open(folder, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def write_bytes_atomic(path: Path, data: bytes) -> None:
+    """Write ``data`` beside ``path`` under a temporary name, fsync it, then rename it over ``path``.
+
+    A reader (or a crash at any instant) sees the old file or the new one, never half of one.
+
+    Raises:
+        OSError: If the folder is missing or not writable.
+    """
+    path = Path(path)
+    # Not tempfile.mkstemp: its files are private (0600); these get the user's usual permissions.
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.{secrets.token_hex(4)}.partial")
+    try:
+        with open(temporary, "xb") as file:
+            file.write(data)
+            file.flush()
+            os.fsync(file.fileno())
+        os.replace(temporary, path)
+    except BaseException:
+        temporary.unlink(missing_ok=True)
+        raise
+    _fsync_folder(path.parent)
+
+
+def write_text_atomic(path: Path, text: str) -> None:
+    """UTF-8 text through :func:`write_bytes_atomic`."""
+    write_bytes_atomic(path, text.encode("utf-8"))
+
+
+def write_json_atomic(path: Path, data: Mapping[str, Any]) -> None:
+    """Strict JSON (no NaN or infinity: other readers reject them) through :func:`write_bytes_atomic`."""
+    write_text_atomic(path, json.dumps(data, indent=2, allow_nan=False, ensure_ascii=False) + "\n")
+
+
+def replace_folder_atomic(staged: Path, folder: Path) -> None:
+    """Move a completely written folder ``staged`` to ``folder``, replacing what was there.
+
+    The old folder is renamed aside first and removed only after the new one is in place, so an
+    interruption leaves either the old or the new folder under a known name.
+    """
+    if folder.exists():
+        old = folder.with_name(f".{folder.name}-replaced")
+        shutil.rmtree(old, ignore_errors=True)
+        os.replace(folder, old)
+        os.replace(staged, folder)
+        shutil.rmtree(old, ignore_errors=True)
+    else:
+        os.replace(staged, folder)
+    _fsync_folder(folder.parent)
+
+
+@dataclass(frozen=True)
+class FinalNumbers:
+    """The figures a comparison reads first: the last evaluation's mean return, entropy and α."""
+
+    return_eval: float
+    return_eval_std: float
+    entropy: float | None
+    alpha: float | None
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """What ``result.json`` records about a finished run.
+
+    ``target_entropy`` is the total target over the action (the per-group targets add up because
+    the entropy of a diagonal squashed Gaussian is the sum of its per-dimension entropies);
+    ``target_entropy_groups`` keeps the one-per-α values.
+    """
+
+    env_id: str
+    env_name: str
+    seed: int
+    steps: int
+    target_entropy: float
+    target_entropy_groups: list[float]
+    temperature_mode: str
+    final: FinalNumbers
+    evaluation: dict[str, float]
+    evaluation_seeds: list[int]
+    eval_deterministic: bool
+    eval_curve: list[list[float]]
+    updates: int
+    updates_per_s: float | None
+    wall_time_s: float
+    policy: str = POLICY
+    skipped: bool = field(default=False, compare=False)
+
+    def to_json(self) -> dict[str, Any]:
+        """Plain data for ``result.json`` (without the in-memory ``skipped`` flag)."""
+        data = asdict(self)
+        data.pop("skipped")
+        return data
+
+    @classmethod
+    def from_json(cls, data: Mapping[str, Any], skipped: bool = False) -> RunResult:
+        """Rebuild a record read from ``result.json``.
+
+        Lenient on purpose: a record written by an older Kiln lacks some fields, which read as
+        ``None``; a finished run must still be recognised and left alone.
+        """
+        names = [f for f in cls.__dataclass_fields__ if f not in ("skipped", "final")]
+        values = {name: data.get(name) for name in names}
+        final = data.get("final") if isinstance(data.get("final"), Mapping) else {}
+        values["final"] = FinalNumbers(**{f: final.get(f) for f in FinalNumbers.__dataclass_fields__})
+        return cls(**values, skipped=skipped)
+
+
+class RunFolder:
+    """One run's folder: where each file lives and how it is written.
+
+    Args:
+        path: The folder (created on :meth:`prepare`).
+    """
+
+    def __init__(self, path: Path) -> None:
+        self.path = Path(path)
+
+    @property
+    def config_path(self) -> Path:
+        return self.path / CONFIG
+
+    @property
+    def result_path(self) -> Path:
+        return self.path / RESULT
+
+    @property
+    def policy_path(self) -> Path:
+        return self.path / POLICY
+
+    def evaluation_path(self, mode: str, seeds: list[int]) -> Path:
+        """Default file of an evaluation record: named by mode, first reset seed and episode count."""
+        return self.path / EVALUATIONS / f"{mode}_seed{seeds[0]}_{len(seeds)}ep.json"
+
+    def is_finished(self) -> bool:
+        """True once ``result.json`` exists (it is written last)."""
+        return self.result_path.is_file()
+
+    def read_result(self) -> RunResult:
+        """The finished run's record, flagged as skipped (the caller did not run it again)."""
+        return RunResult.from_json(json.loads(self.result_path.read_text()), skipped=True)
+
+    def prepare(self, resolved_config: Mapping[str, Any]) -> None:
+        """Create the folder for a new attempt and save its config.
+
+        What an interrupted earlier attempt left (events, policy, config) is moved into
+        ``unfinished-<n>/`` first: nothing already written is deleted.
+        """
+        from omegaconf import OmegaConf
+
+        self.path.mkdir(parents=True, exist_ok=True)
+        self._set_aside_unfinished()
+        write_text_atomic(self.config_path, OmegaConf.to_yaml(OmegaConf.create(dict(resolved_config))))
+
+    def write_result(self, result: RunResult) -> None:
+        """Write ``result.json``, which marks the run finished."""
+        write_json_atomic(self.result_path, result.to_json())
+
+    def _set_aside_unfinished(self) -> None:
+        leftovers = [
+            p for p in self.path.iterdir() if p.name.startswith(EVENTS_PREFIX) or p.name in (POLICY, CONFIG, EVALUATIONS)
+        ]
+        if not leftovers:
+            return
+        n = 1
+        while (self.path / f"{UNFINISHED_PREFIX}{n}").exists():
+            n += 1
+        dest = self.path / f"{UNFINISHED_PREFIX}{n}"
+        dest.mkdir()
+        for p in leftovers:
+            shutil.move(str(p), dest / p.name)
