@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 
 import numpy as np
 import torch
+
+from agents.errors import ConfigError
 
 
 @dataclass(frozen=True)
@@ -17,6 +20,29 @@ class Batch:
     reward: torch.Tensor
     next_obs: torch.Tensor
     terminated: torch.Tensor
+
+
+def replay_bytes(capacity: int, obs_dim: int, act_dim: int) -> int:
+    """Memory the buffer preallocates: observation, next observation, action, reward and flag rows in float32."""
+    return capacity * (2 * obs_dim + act_dim + 2) * 4
+
+
+def check_replay_fits(capacity: int, obs_dim: int, act_dim: int) -> None:
+    """Refuse a capacity whose buffer would not fit in this machine's memory, before allocating it.
+
+    Raises:
+        ConfigError: Naming how much the buffer needs and how much the machine has.
+    """
+    need = replay_bytes(capacity, obs_dim, act_dim)
+    have = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
+    # Half the machine: the run needs room for networks, the env and the OS besides the buffer.
+    if need > have // 2:
+        gib = 1024**3
+        raise ConfigError(
+            f"agent.replay_capacity={capacity} needs {need / gib:.3g} GiB for the replay buffer "
+            f"(obs {obs_dim}, act {act_dim}); this machine has {have / gib:.3g} GiB: lower agent.replay_capacity "
+            f"to at most {have // 2 // (need // capacity)}"
+        )
 
 
 class ReplayBuffer:

@@ -12,7 +12,9 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
 from typing import Any
 
+from agents import checks
 from agents.errors import ConfigError
+from agents.nets import NONLINEARITIES
 from agents.renamed import refuse_old_keys
 
 # The published heuristic target entropy H̄ = −dim(A) (Table 1), by name.
@@ -72,33 +74,61 @@ class AgentSettings:
     def from_mapping(cls, data: Mapping[str, Any]) -> AgentSettings:
         """Build settings from a plain mapping (e.g. a resolved ``agent:`` config section).
 
+        Missing keys keep their defaults; every given value is checked for type and range.
+
         Raises:
-            ConfigError: On an old or unknown key (the message names the key to use).
+            ConfigError: On an old or unknown key, or a value of the wrong type or out of range.
         """
         refuse_old_keys(data, "agent")
         values = dict(data)
-        parts: dict[str, Any] = {}
+        parts: dict[str, dict[str, Any]] = {}
         for name, kind in (("actor", ActorSettings), ("critic", CriticSettings), ("temperature", TemperatureSettings)):
             part = values.pop(name, None) or {}
             if not isinstance(part, Mapping):
                 raise ConfigError(f"agent.{name} must be a group of keys, got {part!r}: see configs/agent/published.yaml")
             refuse_old_keys(part, f"agent.{name}")
             _refuse_unknown(part, kind, f"agent.{name}")
-            parts[name] = dict(part)
+            parts[name] = {key: _CHECKS[f"{name}.{key}"](value, f"agent.{name}.{key}") for key, value in part.items()}
         _refuse_unknown(values, cls, "agent", ignore={"actor", "critic", "temperature"})
-        if "layer_widths" in values:
-            values["layer_widths"] = tuple(int(h) for h in values["layer_widths"])
-        if "log_std_soft_limits" in parts["actor"]:
-            parts["actor"]["log_std_soft_limits"] = tuple(float(b) for b in parts["actor"]["log_std_soft_limits"])
-        target = parts["temperature"].get("target_entropy")
-        if isinstance(target, (list, tuple)):
-            parts["temperature"]["target_entropy"] = tuple(float(t) for t in target)
+        values = {key: _CHECKS[key](value, f"agent.{key}") for key, value in values.items()}
         return cls(
             **values,
             actor=ActorSettings(**parts["actor"]),
             critic=CriticSettings(**parts["critic"]),
             temperature=TemperatureSettings(**parts["temperature"]),
         )
+
+
+def _target_entropy(value: Any, path: str) -> Any:
+    """``minus_action_dims``, a finite number, or a list of finite numbers (length checked on resolving)."""
+    if isinstance(value, str):
+        resolve_target_entropy(value, 1)  # refuses "auto" and unknown words with the fix
+        return value
+    if isinstance(value, (list, tuple)):
+        if not value:
+            raise ConfigError(f"{path} is an empty list: give one number, or one per action dimension")
+        return tuple(checks.number(v, f"{path}[{i}]", -1e6, 1e6) for i, v in enumerate(value))
+    return checks.number(value, path, -1e6, 1e6)
+
+
+# Dotted key (below agent.) → its check; the limits are far outside any useful setting and only stop
+# typos from becoming absurd allocations (common practice, no source).
+_CHECKS: dict[str, Any] = {
+    "layer_widths": lambda v, p: checks.int_list(v, p, 1, 65_536, 64),
+    "nonlinearity": lambda v, p: checks.choice(v, p, sorted(NONLINEARITIES)),
+    "discount": lambda v, p: checks.number(v, p, 0.0, 1.0, high_open=True),
+    "batch_size": lambda v, p: checks.integer(v, p, 1, 1_000_000),
+    "replay_capacity": lambda v, p: checks.integer(v, p, 1, 10**10),
+    "actor.lr": checks.positive,
+    "actor.log_std_soft_limits": lambda v, p: checks.increasing_pair(v, p, -100.0, 20.0),
+    "critic.count": lambda v, p: checks.integer(v, p, 1, 1024),
+    "critic.lr": checks.positive,
+    "critic.target_smoothing": lambda v, p: checks.number(v, p, 0.0, 1.0, low_open=True),
+    "temperature.mode": lambda v, p: checks.choice(v, p, TEMPERATURE_MODES),
+    "temperature.start": checks.positive,
+    "temperature.lr": checks.positive,
+    "temperature.target_entropy": _target_entropy,
+}
 
 
 def _refuse_unknown(data: Mapping[str, Any], kind: type, where: str, ignore: set[str] | None = None) -> None:

@@ -24,7 +24,7 @@ from agents.evaluation import run_episodes, summarise
 from agents.log_window import LogWindow
 from agents.policy_io import build_spec, save_policy
 from agents.progress import Progress
-from agents.replay import ReplayBuffer
+from agents.replay import ReplayBuffer, check_replay_fits
 from agents.run_folder import FinalNumbers, RunFolder, RunResult
 from agents.run_log import RunLog
 from agents.sac import SoftActorCritic
@@ -57,6 +57,30 @@ def _finite_or_none(x: float | None) -> float | None:
     return None if x is None or not math.isfinite(x) else float(x)
 
 
+def _open_task(cfg: RunConfig) -> tuple[Any, tuple[float, ...]]:
+    """The training env and the resolved target entropy; the replay's memory checked against the machine."""
+    env = make_env(cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps)
+    try:
+        obs_dim, act_dim = env.observation_space.shape[0], env.action_space.shape[0]
+        check_replay_fits(cfg.agent.replay_capacity, obs_dim, act_dim)
+        # Resolved once, here, where the action size is known; everything below receives the tuple.
+        return env, resolve_target_entropy(cfg.agent.temperature.target_entropy, act_dim)
+    except BaseException:
+        env.close()
+        raise
+
+
+def check_run(raw_config: Mapping[str, Any]) -> None:
+    """Everything that can be checked before a run folder exists: values, task id, spaces, memory.
+
+    Raises:
+        ConfigError: If the config is invalid.
+        TaskError: If the task cannot be created or driven by Kiln.
+    """
+    env, _ = _open_task(parse_run_config(raw_config))
+    env.close()
+
+
 def train(raw_config: Mapping[str, Any], run_dir: Path) -> RunResult:
     """Run one training run into ``run_dir`` and return its result (also saved as ``result.json``).
 
@@ -81,11 +105,9 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> RunResult:
     if r.deterministic:
         torch.use_deterministic_algorithms(True)
 
-    env_args = (cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps)
-    env, eval_env = make_env(*env_args), make_env(*env_args)
+    env, target = _open_task(cfg)
+    eval_env = make_env(cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps)
     obs_dim, act_dim = env.observation_space.shape[0], env.action_space.shape[0]
-    # Resolved once, here, where the action size is known; everything below receives the tuple.
-    target = resolve_target_entropy(cfg.agent.temperature.target_entropy, act_dim)
     target_total = sum(target)
     folder.prepare(cfg.raw)
 

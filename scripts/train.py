@@ -11,28 +11,14 @@ from __future__ import annotations
 
 import sys
 from pathlib import Path
-from typing import Any
 
 import hydra
 from hydra.core.hydra_config import HydraConfig
 from omegaconf import DictConfig, OmegaConf
 
-from agents.config import parse_run_config
-from agents.settings import resolve_target_entropy
 from agents.run_folder import RunFolder, RunResult
-from agents.trainer import train
-from envs.make import make_env
+from agents.trainer import check_run, train
 from scripts._cli import check_overrides, guarded
-
-
-def check_run_config(raw: dict[str, Any]) -> None:
-    """Everything that can be checked before a run folder exists: values, task id, spaces."""
-    cfg = parse_run_config(raw)
-    env = make_env(cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps)
-    try:
-        resolve_target_entropy(cfg.agent.temperature.target_entropy, env.action_space.shape[0])
-    finally:
-        env.close()
 
 
 def report(run_dir: Path, result: RunResult) -> None:
@@ -68,7 +54,7 @@ def _hydra_entry(cfg: DictConfig) -> float:
 
 def main() -> None:
     """Check the command line, then hand it to Hydra."""
-    check_overrides("train", sys.argv[1:], check_run_config)
+    check_overrides("train", sys.argv[1:], check_run)
     _hydra_entry()
 
 
