@@ -32,6 +32,7 @@ from agents.run_log import RunLog
 from agents.sac import SoftActorCritic
 from agents.settings import resolve_target_entropy
 from envs.make import make_env
+from envs.task_spec import TaskSpec
 
 RESULT = "result.json"
 CONFIG = "config.yaml"
@@ -96,7 +97,8 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
         run_dir: The run's folder; created if missing.
 
     Raises:
-        ConfigError: If the config is invalid or the task cannot be driven by Kiln.
+        ConfigError: If the config is invalid.
+        TaskError: If the task cannot be built or driven by Kiln.
     """
     # One plain, resolved copy of the config: what is checked is what is saved beside the run.
     cfg = parse_run_config(OmegaConf.to_container(OmegaConf.create(dict(raw_config)), resolve=True))
@@ -111,8 +113,8 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
     if r.deterministic:
         torch.use_deterministic_algorithms(True)
 
-    env_args = (cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps)
-    env, eval_env = make_env(*env_args), make_env(*env_args)
+    task = TaskSpec(cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps)
+    env, eval_env = make_env(task), make_env(task)
     obs_dim, act_dim = env.observation_space.shape[0], env.action_space.shape[0]
     target = resolve_target_entropy(cfg.agent.temperature.target_entropy, act_dim)
     _set_aside_unfinished(run_dir)
@@ -191,7 +193,7 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> dict[str, Any]:
                 progress.advance(step)
 
         wall = time.perf_counter() - started
-        env_record = {"id": cfg.env.id, "kwargs": cfg.env.kwargs, "max_episode_steps": eval_env.spec.max_episode_steps}
+        env_record = TaskSpec(task.id, task.kwargs, eval_env.spec.max_episode_steps).to_record()
         spec = build_spec(agent.actor, env.observation_space, env.action_space, env_record, cfg.raw)
         save_policy(run_dir / POLICY, agent.actor, spec)
     finally:

@@ -21,13 +21,14 @@ from agents.config import parse_run_config
 from agents.settings import resolve_target_entropy
 from agents.trainer import POLICY, train
 from envs.make import make_env
+from envs.task_spec import TaskSpec
 from scripts._cli import check_overrides, guarded
 
 
 def check_run_config(raw: dict[str, Any]) -> None:
     """Everything that can be checked before a run folder exists: values, task id, spaces."""
     cfg = parse_run_config(raw)
-    env = make_env(cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps)
+    env = make_env(TaskSpec(cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps))
     try:
         resolve_target_entropy(cfg.agent.temperature.target_entropy, env.action_space.shape[0])
     finally:
