@@ -179,3 +179,54 @@ def test_user_module_failing_to_import_is_one_clear_line(tmp_path, monkeypatch):
     with pytest.raises(TaskError, match="kiln_test_crashing_tasks.*RuntimeError: bad") as info:
         make_env(TaskSpec("kiln_test_crashing_tasks:Any-v0", {}, None))
     assert "\n" not in str(info.value)
+
+
+# A user's own task written as Kiln's are: options dataclass and batched dynamics, registered on import.
+USER_BATCHED_MODULE = '''
+from dataclasses import dataclass
+
+import numpy as np
+from gymnasium import spaces
+
+from envs.task_base import BatchedDynamics
+from envs.task_entry import register_task
+
+
+@dataclass(frozen=True)
+class CountOptions:
+    start: float = 2.0
+
+
+class Count(BatchedDynamics):
+    options_type = CountOptions
+    state_size = 1
+
+    def __init__(self, options):
+        super().__init__(options)
+        self.observation_space = spaces.Box(-np.inf, np.inf, (1,), np.float32)
+        self.action_space = spaces.Box(-1.0, 1.0, (1,), np.float32)
+
+    def sample_start(self, rng, count):
+        return np.full((count, 1), self.options.start)
+
+    def advance(self, states, actions, rng):
+        return states + 1.0, np.ones(len(states)), np.zeros(len(states), dtype=bool)
+
+    def observe(self, states):
+        return states.astype(np.float32)
+
+
+register_task("KilnTestCount-v0", Count, max_episode_steps=4)
+'''
+
+
+def test_user_batched_task_by_module_qualified_id_in_both_forms(tmp_path, monkeypatch):
+    (tmp_path / "kiln_test_batched_tasks.py").write_text(USER_BATCHED_MODULE)
+    monkeypatch.syspath_prepend(str(tmp_path))
+    spec = TaskSpec("kiln_test_batched_tasks:KilnTestCount-v0", {"start": 5.0}, None)
+    assert make_env(spec).reset(seed=0)[0].tolist() == [5.0]
+    vector_env = make_vector_env(spec, 3)
+    assert vector_env.reset(seed=0)[0].tolist() == [[5.0]] * 3
+    # x' = x + 1 on every copy: 5 -> 6; the registered 4-step limit is the batch's.
+    assert vector_env.step(np.zeros((3, 1), dtype=np.float32))[0].tolist() == [[6.0]] * 3
+    assert vector_env.max_episode_steps == 4
