@@ -15,6 +15,7 @@ from agents.errors import ConfigError
 from agents.renamed import refuse_old_keys
 from agents.settings import AgentSettings
 from agents.streams import LARGEST_EPISODES, LARGEST_SEED
+from envs.task_spec import TaskSpec
 
 # Every key a run config may hold, per section; anything else is a typo we refuse.
 _SECTIONS: dict[str, set[str]] = {
@@ -34,6 +35,11 @@ class EnvSettings:
     name: str
     max_episode_steps: int | None
     kwargs: dict[str, Any]
+
+    @property
+    def task(self) -> TaskSpec:
+        """The task to build, as ``envs`` takes it."""
+        return TaskSpec(self.id, self.kwargs, self.max_episode_steps)
 
 
 @dataclass(frozen=True)

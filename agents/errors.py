@@ -1,5 +1,7 @@
 """User-facing errors: one line that names the problem and the fix."""
 
+from envs.errors import TaskError
+
 
 class KilnError(Exception):
     """A problem with the user's input (config, files, task) that Kiln reports in one line.
@@ -15,3 +17,7 @@ class ConfigError(KilnError):
 
 class PolicyFolderError(KilnError):
     """A saved-policy folder is missing, incomplete or inconsistent."""
+
+
+# Every error a command prints as one line (exit code 2): Kiln's own and the tasks' (envs/ has its own).
+USER_ERRORS = (KilnError, TaskError)

@@ -13,6 +13,7 @@ from agents.errors import KilnError
 from agents.evaluation import run_episodes, summarise
 from agents.policy_io import SavedPolicy
 from envs.make import make_env
+from envs.task_spec import TaskSpec
 
 
 def evaluate_policy(
@@ -35,13 +36,11 @@ def evaluate_policy(
         ``{"episodes": [...per-episode...], "summary": {...}}``.
 
     Raises:
-        KilnError: If the task cannot be created or rendered.
+        TaskError: If the task cannot be created.
+        KilnError: If it cannot be rendered.
     """
     env_spec = policy.spec["env"]
-    env = make_env(
-        env_spec["id"], env_spec.get("kwargs") or {}, env_spec.get("max_episode_steps"),
-        render_mode="rgb_array" if video_dir is not None else None,
-    )  # fmt: skip
+    env = make_env(TaskSpec.from_record(env_spec), render_mode="rgb_array" if video_dir is not None else None)
     obs_shape = tuple(policy.spec["observation_space"]["shape"])
     if env.observation_space.shape != obs_shape:
         raise KilnError(

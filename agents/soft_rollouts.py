@@ -10,11 +10,12 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 from typing import Any
 
-import gymnasium as gym
 import numpy as np
 import torch
 
 from agents.policy_io import SavedPolicy
+from envs.make import make_vector_env
+from envs.task_spec import TaskSpec
 
 # (observations [B, n]) -> (actions in task units [B, m], log-density in task units [B])
 Sampler = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
@@ -98,12 +99,7 @@ def soft_returns(
     Returns:
         (returns ``[copies]``, start observations ``[copies, obs_dim]``).
     """
-    import envs  # noqa: F401  (registers Kiln's tasks)
-
-    options = dict(kwargs)
-    if max_episode_steps is not None:
-        options["max_episode_steps"] = int(max_episode_steps)
-    vector_env = gym.make_vec(env_id, num_envs=copies, vectorization_mode="vector_entry_point", **options)
+    vector_env = make_vector_env(TaskSpec(env_id, kwargs, max_episode_steps), copies)
     try:
         observations, _ = vector_env.reset(seed=seed)
         starts = np.asarray(observations, dtype=np.float64).copy()

@@ -31,6 +31,7 @@ from agents.sac import SoftActorCritic
 from agents.settings import resolve_target_entropy
 from agents.streams import RunStreams
 from envs.make import make_env
+from envs.task_spec import TaskSpec
 
 
 def _hyperparameters(cfg: RunConfig, target_total: float) -> dict[str, float | int | str | bool]:
@@ -59,7 +60,7 @@ def _finite_or_none(x: float | None) -> float | None:
 
 def _open_task(cfg: RunConfig) -> tuple[Any, tuple[float, ...]]:
     """The training env and the resolved target entropy; the replay's memory checked against the machine."""
-    env = make_env(cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps)
+    env = make_env(cfg.env.task)
     try:
         obs_dim, act_dim = env.observation_space.shape[0], env.action_space.shape[0]
         check_replay_fits(cfg.agent.replay_capacity, obs_dim, act_dim)
@@ -106,7 +107,7 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> RunResult:
         torch.use_deterministic_algorithms(True)
 
     env, target = _open_task(cfg)
-    eval_env = make_env(cfg.env.id, cfg.env.kwargs, cfg.env.max_episode_steps)
+    eval_env = make_env(cfg.env.task)
     obs_dim, act_dim = env.observation_space.shape[0], env.action_space.shape[0]
     target_total = sum(target)
     folder.prepare(cfg.raw)
@@ -182,7 +183,7 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> RunResult:
             progress.advance(step)
 
         wall = time.perf_counter() - started
-        env_record = {"id": cfg.env.id, "kwargs": cfg.env.kwargs, "max_episode_steps": eval_env.spec.max_episode_steps}
+        env_record = TaskSpec(cfg.env.id, cfg.env.kwargs, eval_env.spec.max_episode_steps).to_record()
         spec = build_spec(agent.actor, env.observation_space, env.action_space, env_record, cfg.raw)
         save_policy(folder.policy_path, agent.actor, spec)
     finally:

@@ -13,40 +13,57 @@ quadrature in ``envs.bandit_solution``.
 
 from __future__ import annotations
 
-from typing import Any
+from dataclasses import dataclass
 
 import numpy as np
 from gymnasium import spaces
 
+from envs.errors import TaskError
 from envs.task_base import BatchedDynamics
-from envs.task_env import TaskEnv
-from envs.task_vector import TaskVectorEnv
+from envs.task_options import finite_number
 
 DEFAULT_STIFFNESS = 4.0
 DEFAULT_TARGET = 0.5
 
 
+@dataclass(frozen=True)
+class DamperTrimOptions:
+    """DamperTrim's options.
+
+    Attributes:
+        stiffness: k > 0, the curvature of the loss.
+        target: a0, the best position (may lie outside [-1, 1]; the optimum then sits at a bound).
+    """
+
+    stiffness: float = DEFAULT_STIFFNESS
+    target: float = DEFAULT_TARGET
+
+    def __post_init__(self) -> None:
+        """Validate and store both as floats.
+
+        Raises:
+            TaskError: If stiffness is not positive and finite or target is not finite.
+        """
+        stiffness = finite_number(self.stiffness, "stiffness")
+        if stiffness <= 0:
+            raise TaskError(f"stiffness must be finite and > 0, got {self.stiffness}; pass e.g. 4.0")
+        object.__setattr__(self, "stiffness", stiffness)
+        object.__setattr__(self, "target", finite_number(self.target, "target"))
+
+
 class DamperTrimDynamics(BatchedDynamics):
     """Batched DamperTrim: one step, reward -(stiffness / 2)(a - target)^2, always terminates."""
 
+    options_type = DamperTrimOptions
     state_size = 1
 
-    def __init__(self, stiffness: float = DEFAULT_STIFFNESS, target: float = DEFAULT_TARGET) -> None:
-        """Set the loss curvature and the best damper position.
+    def __init__(self, options: DamperTrimOptions) -> None:
+        """Set up the spaces: one constant observation, one damper position in [-1, 1].
 
         Args:
-            stiffness: k > 0, the curvature of the loss.
-            target: a0, the best position (may lie outside [-1, 1]; the optimum then sits at a bound).
-
-        Raises:
-            ValueError: If stiffness is not positive and finite or target is not finite.
+            options: The loss curvature and the best damper position.
         """
-        if not (np.isfinite(stiffness) and stiffness > 0):
-            raise ValueError(f"stiffness must be finite and > 0, got {stiffness}; pass e.g. 4.0")
-        if not np.isfinite(target):
-            raise ValueError(f"target must be finite, got {target}; pass e.g. 0.5")
-        self.stiffness = float(stiffness)
-        self.target = float(target)
+        super().__init__(options)
         self.observation_space = spaces.Box(-1.0, 1.0, shape=(1,), dtype=np.float32)
         self.action_space = spaces.Box(-1.0, 1.0, shape=(1,), dtype=np.float32)
 
@@ -58,37 +75,9 @@ class DamperTrimDynamics(BatchedDynamics):
         self, states: np.ndarray, actions: np.ndarray, rng: np.random.Generator
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Pay -(k / 2)(a - a0)^2 and terminate."""
-        rewards = -0.5 * self.stiffness * (actions[:, 0] - self.target) ** 2
+        rewards = -0.5 * self.options.stiffness * (actions[:, 0] - self.options.target) ** 2
         return states.copy(), rewards, np.ones(states.shape[0], dtype=bool)
 
     def observe(self, states: np.ndarray) -> np.ndarray:
         """A constant zero observation (the bandit has no context)."""
         return np.zeros((states.shape[0], 1), dtype=np.float32)
-
-
-class DamperTrimEnv(TaskEnv):
-    """One DamperTrim copy."""
-
-    def __init__(
-        self,
-        stiffness: float = DEFAULT_STIFFNESS,
-        target: float = DEFAULT_TARGET,
-        render_mode: str | None = None,
-    ) -> None:
-        """See ``DamperTrimDynamics``; render_mode must be None."""
-        super().__init__(DamperTrimDynamics(stiffness, target), render_mode)
-
-
-class DamperTrimVectorEnv(TaskVectorEnv):
-    """``num_envs`` DamperTrim copies stepped together."""
-
-    def __init__(
-        self,
-        num_envs: int = 1,
-        max_episode_steps: int | None = None,
-        autoreset_mode: Any = "NextStep",
-        stiffness: float = DEFAULT_STIFFNESS,
-        target: float = DEFAULT_TARGET,
-    ) -> None:
-        """See ``TaskVectorEnv`` and ``DamperTrimDynamics``."""
-        super().__init__(DamperTrimDynamics(stiffness, target), num_envs, max_episode_steps, autoreset_mode)

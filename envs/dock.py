@@ -20,20 +20,19 @@ The car starts at rest at p ~ U(start_low, start_high). Observation: (p, v).
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass
-from typing import Any
+from dataclasses import dataclass, fields
 
 import numpy as np
 from gymnasium import spaces
 
+from envs.errors import TaskError
 from envs.task_base import BatchedDynamics
-from envs.task_env import TaskEnv
-from envs.task_vector import TaskVectorEnv
+from envs.task_options import finite_number
 
 
 @dataclass(frozen=True)
-class CarDockConfig:
-    """CarDock parameters (SI-like scaled units: metres, seconds).
+class CarDockOptions:
+    """CarDock's options (SI-like scaled units: metres, seconds).
 
     Attributes:
         dt: Time step, > 0.
@@ -64,31 +63,29 @@ class CarDockConfig:
     dock_bonus: float = 10.0
 
     def __post_init__(self) -> None:
-        """Validate.
+        """Validate and store every option as a float.
 
         Raises:
-            ValueError: On a parameter outside its range (the message names it and the fix).
+            TaskError: On an option outside its range (the message names it and the fix).
         """
-        values = asdict(self)
-        for name, value in values.items():
-            if not np.isfinite(value):
-                raise ValueError(f"{name} must be finite, got {value}; pass a number")
+        for option in fields(self):
+            object.__setattr__(self, option.name, finite_number(getattr(self, option.name), option.name))
         for name in ("dt", "push_gain", "rail_length", "dock_tolerance", "dock_speed"):
-            if values[name] <= 0:
-                raise ValueError(f"{name} must be > 0, got {values[name]}; pass a positive number")
+            if getattr(self, name) <= 0:
+                raise TaskError(f"{name} must be > 0, got {getattr(self, name)}; pass a positive number")
         for name in ("friction", "step_cost", "effort_cost"):
-            if values[name] < 0:
-                raise ValueError(f"{name} must be >= 0, got {values[name]}; pass a non-negative number")
+            if getattr(self, name) < 0:
+                raise TaskError(f"{name} must be >= 0, got {getattr(self, name)}; pass a non-negative number")
         if self.dt * self.friction >= 1:
-            raise ValueError(
+            raise TaskError(
                 f"dt * friction must be < 1 (got {self.dt * self.friction}); lower dt or friction"
             )
         if not 0 <= self.dock_position <= self.rail_length:
-            raise ValueError(
+            raise TaskError(
                 f"dock_position must lie in [0, rail_length], got {self.dock_position}; move it onto the rail"
             )
         if not 0 <= self.start_low <= self.start_high <= self.rail_length:
-            raise ValueError(
+            raise TaskError(
                 "need 0 <= start_low <= start_high <= rail_length, "
                 f"got ({self.start_low}, {self.start_high}); fix the start interval"
             )
@@ -97,25 +94,26 @@ class CarDockConfig:
 class CarDockDynamics(BatchedDynamics):
     """Batched CarDock dynamics."""
 
+    options_type = CarDockOptions
     state_size = 2
 
-    def __init__(self, config: CarDockConfig) -> None:
-        """Build spaces from the config.
+    def __init__(self, options: CarDockOptions) -> None:
+        """Build spaces from the options.
 
         Args:
-            config: Task parameters.
+            options: Task parameters.
         """
-        self.config = config
+        super().__init__(options)
         self.observation_space = spaces.Box(
             low=np.array([0.0, -np.inf], dtype=np.float32),
-            high=np.array([config.rail_length, np.inf], dtype=np.float32),
+            high=np.array([options.rail_length, np.inf], dtype=np.float32),
             dtype=np.float32,
         )
         self.action_space = spaces.Box(-1.0, 1.0, shape=(1,), dtype=np.float32)
 
     def sample_start(self, rng: np.random.Generator, count: int) -> np.ndarray:
         """At rest, p ~ U(start_low, start_high)."""
-        c = self.config
+        c = self.options
         positions = rng.uniform(c.start_low, c.start_high, size=count)
         return np.stack([positions, np.zeros(count)], axis=1)
 
@@ -123,7 +121,7 @@ class CarDockDynamics(BatchedDynamics):
         self, states: np.ndarray, actions: np.ndarray, rng: np.random.Generator
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """One semi-implicit Euler step with buffer stops; terminate on docking."""
-        c = self.config
+        c = self.options
         push = actions[:, 0]
         velocity = states[:, 1] + c.dt * (c.push_gain * push - c.friction * states[:, 1])
         position = states[:, 0] + c.dt * velocity
@@ -137,44 +135,3 @@ class CarDockDynamics(BatchedDynamics):
     def observe(self, states: np.ndarray) -> np.ndarray:
         """Observation (p, v)."""
         return states.astype(np.float32)
-
-
-class CarDockEnv(TaskEnv):
-    """One CarDock copy. Keyword arguments are the ``CarDockConfig`` fields."""
-
-    def __init__(self, render_mode: str | None = None, **config: Any) -> None:
-        """Create the task; render_mode must be None (the task draws nothing).
-
-        Raises:
-            ValueError: On unknown or invalid options, or a render mode.
-        """
-        super().__init__(CarDockDynamics(_config_from_kwargs(config)), render_mode)
-
-
-class CarDockVectorEnv(TaskVectorEnv):
-    """``num_envs`` CarDock copies stepped together."""
-
-    def __init__(
-        self,
-        num_envs: int = 1,
-        max_episode_steps: int | None = None,
-        autoreset_mode: Any = "NextStep",
-        **config: Any,
-    ) -> None:
-        """Create the batch; ``config`` as for CarDockEnv.
-
-        Raises:
-            ValueError: On unknown or invalid options.
-        """
-        super().__init__(
-            CarDockDynamics(_config_from_kwargs(config)), num_envs, max_episode_steps, autoreset_mode
-        )
-
-
-def _config_from_kwargs(config: dict[str, Any]) -> CarDockConfig:
-    """Build a CarDockConfig, naming unknown options."""
-    allowed = set(CarDockConfig.__dataclass_fields__)
-    unknown = set(config) - allowed
-    if unknown:
-        raise ValueError(f"unknown CarDock option(s) {sorted(unknown)}; use some of {sorted(allowed)}")
-    return CarDockConfig(**{name: float(value) for name, value in config.items()})

@@ -20,15 +20,14 @@ see DEFAULT_ACTION_BOUND for the numbers. Actions outside the Box are clipped, a
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
 
 import numpy as np
 from gymnasium import spaces
 from numpy.typing import ArrayLike
 
+from envs.errors import TaskError
 from envs.task_base import BatchedDynamics
-from envs.task_env import TaskEnv
-from envs.task_vector import TaskVectorEnv
+from envs.task_options import finite_number
 
 # Default plant: chamber relaxes to ambient (0.85) and gains from a warmer wall (0.10); the wall
 # follows the chamber slowly (0.05, 0.93). Eigenvalues 0.97 and 0.81: stable without control, so an
@@ -50,14 +49,17 @@ DEFAULT_ACTION_BOUND = 10.0
 
 def _as_matrix(value: ArrayLike, name: str, diagonal_allowed: bool, size: int = 1) -> np.ndarray:
     """Scalar -> multiple of the size x size identity; vector -> diagonal (cost/covariance) or column."""
-    array = np.asarray(value, dtype=np.float64)
+    try:
+        array = np.asarray(value, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise TaskError(f"{name} must be a number or a (nested) list of numbers, got {value!r}") from None
     if array.ndim == 0:
         return array * np.eye(size)
     if array.ndim == 1:
         return np.diag(array) if diagonal_allowed else array.reshape(-1, 1)
     if array.ndim == 2:
         return array
-    raise ValueError(
+    raise TaskError(
         f"{name} must be a scalar, vector or matrix, got {array.ndim} dimensions; pass a 2-D array"
     )
 
@@ -65,18 +67,18 @@ def _as_matrix(value: ArrayLike, name: str, diagonal_allowed: bool, size: int = 
 def _check_symmetric(matrix: np.ndarray, name: str, size: int, strictly_positive: bool) -> None:
     """Raise unless matrix is a size x size symmetric positive (semi-)definite matrix."""
     if matrix.shape != (size, size):
-        raise ValueError(
+        raise TaskError(
             f"{name} must have shape ({size}, {size}), got {matrix.shape}; match the state/action size"
         )
     if not np.allclose(matrix, matrix.T, rtol=0.0, atol=1e-12):
-        raise ValueError(f"{name} must be symmetric; pass (M + M.T) / 2")
+        raise TaskError(f"{name} must be symmetric; pass (M + M.T) / 2")
     smallest = float(np.min(np.linalg.eigvalsh(matrix)))
     if strictly_positive and smallest <= 0:
-        raise ValueError(
+        raise TaskError(
             f"{name} must be positive definite (smallest eigenvalue {smallest:.3g}); add a positive diagonal"
         )
     if not strictly_positive and smallest < -1e-12:
-        raise ValueError(
+        raise TaskError(
             f"{name} must be positive semi-definite (smallest eigenvalue {smallest:.3g}); fix the matrix"
         )
 
@@ -110,18 +112,18 @@ class LinearQuadraticModel:
         """Normalise shapes (scalars and diagonals are accepted) and validate.
 
         Raises:
-            ValueError: If shapes disagree, a cost/covariance is not symmetric (semi-)definite, or a
+            TaskError: If shapes disagree, a cost/covariance is not symmetric (semi-)definite, or a
                 scale is not positive.
         """
         a = _as_matrix(self.state_matrix, "state_matrix", diagonal_allowed=False)
         n = a.shape[0]
         if a.shape != (n, n) or not np.all(np.isfinite(a)):
-            raise ValueError(
+            raise TaskError(
                 f"state_matrix must be square and finite, got shape {a.shape}; pass an (n, n) array"
             )
         b = _as_matrix(self.input_matrix, "input_matrix", diagonal_allowed=False)
         if b.shape[0] != n or not np.all(np.isfinite(b)):
-            raise ValueError(
+            raise TaskError(
                 f"input_matrix must have shape ({n}, m) and be finite, got {b.shape}; pass one row per state"
             )
         m = b.shape[1]
@@ -131,10 +133,12 @@ class LinearQuadraticModel:
         _check_symmetric(q, "state_cost", n, strictly_positive=False)
         _check_symmetric(r, "input_cost", m, strictly_positive=True)
         _check_symmetric(w, "noise_covariance", n, strictly_positive=False)
-        if not (np.isfinite(self.start_std) and self.start_std >= 0):
-            raise ValueError(f"start_std must be finite and >= 0, got {self.start_std}; pass e.g. 1.0")
-        if not (np.isfinite(self.action_bound) and self.action_bound > 0):
-            raise ValueError(f"action_bound must be finite and > 0, got {self.action_bound}; pass e.g. 10.0")
+        start_std = finite_number(self.start_std, "start_std")
+        if start_std < 0:
+            raise TaskError(f"start_std must be finite and >= 0, got {self.start_std}; pass e.g. 1.0")
+        action_bound = finite_number(self.action_bound, "action_bound")
+        if action_bound <= 0:
+            raise TaskError(f"action_bound must be finite and > 0, got {self.action_bound}; pass e.g. 10.0")
         for name, value in (
             ("state_matrix", a),
             ("input_matrix", b),
@@ -144,8 +148,8 @@ class LinearQuadraticModel:
         ):
             value.setflags(write=False)
             object.__setattr__(self, name, value)
-        object.__setattr__(self, "start_std", float(self.start_std))
-        object.__setattr__(self, "action_bound", float(self.action_bound))
+        object.__setattr__(self, "start_std", start_std)
+        object.__setattr__(self, "action_bound", action_bound)
 
     @property
     def state_size(self) -> int:
@@ -159,7 +163,9 @@ class LinearQuadraticModel:
 
 
 class FiringHoldDynamics(BatchedDynamics):
-    """Batched FiringHold dynamics for a given ``LinearQuadraticModel``."""
+    """Batched FiringHold dynamics for a given ``LinearQuadraticModel`` (the task's options)."""
+
+    options_type = LinearQuadraticModel
 
     def __init__(self, model: LinearQuadraticModel) -> None:
         """Build spaces from the model.
@@ -167,7 +173,7 @@ class FiringHoldDynamics(BatchedDynamics):
         Args:
             model: The plant, cost and noise.
         """
-        self.model = model
+        super().__init__(model)
         self.state_size = model.state_size
         self.observation_space = spaces.Box(-np.inf, np.inf, shape=(model.state_size,), dtype=np.float32)
         bound = np.float32(model.action_bound)
@@ -178,13 +184,13 @@ class FiringHoldDynamics(BatchedDynamics):
 
     def sample_start(self, rng: np.random.Generator, count: int) -> np.ndarray:
         """x_0 ~ N(0, start_std^2 I)."""
-        return self.model.start_std * rng.standard_normal((count, self.state_size))
+        return self.options.start_std * rng.standard_normal((count, self.state_size))
 
     def advance(
         self, states: np.ndarray, actions: np.ndarray, rng: np.random.Generator
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """x' = A x + B u + w; reward -(x'Qx + u'Ru) of the current x; never terminates."""
-        m = self.model
+        m = self.options
         rewards = -(
             np.einsum("bi,ij,bj->b", states, m.state_cost, states)
             + np.einsum("bi,ij,bj->b", actions, m.input_cost, actions)
@@ -196,55 +202,3 @@ class FiringHoldDynamics(BatchedDynamics):
     def observe(self, states: np.ndarray) -> np.ndarray:
         """The observation is the state itself."""
         return states.astype(np.float32)
-
-
-def _model_from_config(config: dict[str, Any]) -> LinearQuadraticModel:
-    """Build the model from env kwargs (the LinearQuadraticModel field names)."""
-    allowed = set(LinearQuadraticModel.__dataclass_fields__)
-    unknown = set(config) - allowed
-    if unknown:
-        raise ValueError(f"unknown FiringHold option(s) {sorted(unknown)}; use some of {sorted(allowed)}")
-    return LinearQuadraticModel(**config)
-
-
-class FiringHoldEnv(TaskEnv):
-    """One FiringHold copy. Keyword arguments are the ``LinearQuadraticModel`` fields."""
-
-    def __init__(self, render_mode: str | None = None, **config: Any) -> None:
-        """Create the task.
-
-        Args:
-            render_mode: Must be None (the task draws nothing).
-            **config: Any of state_matrix, input_matrix, state_cost, input_cost, noise_covariance,
-                start_std, action_bound (defaults: the two-state kiln above).
-
-        Raises:
-            ValueError: On unknown options or an invalid model.
-        """
-        self.model = _model_from_config(config)
-        super().__init__(FiringHoldDynamics(self.model), render_mode)
-
-
-class FiringHoldVectorEnv(TaskVectorEnv):
-    """``num_envs`` FiringHold copies stepped together."""
-
-    def __init__(
-        self,
-        num_envs: int = 1,
-        max_episode_steps: int | None = None,
-        autoreset_mode: Any = "NextStep",
-        **config: Any,
-    ) -> None:
-        """Create the batch.
-
-        Args:
-            num_envs: Number of copies.
-            max_episode_steps: Time limit (filled in from the registration by gymnasium.make_vec).
-            autoreset_mode: Gymnasium autoreset mode, NEXT_STEP or SAME_STEP.
-            **config: As for FiringHoldEnv.
-
-        Raises:
-            ValueError: On unknown options or an invalid model.
-        """
-        self.model = _model_from_config(config)
-        super().__init__(FiringHoldDynamics(self.model), num_envs, max_episode_steps, autoreset_mode)

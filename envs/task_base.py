@@ -1,13 +1,15 @@
 """The one definition of a Kiln task's dynamics, written for a batch of copies at once.
 
-Each Kiln task writes its dynamics once, on arrays with a leading copy axis; ``envs.task_env`` runs one
-copy as a ``gymnasium.Env`` and ``envs.task_vector`` runs many as a ``gymnasium.vector.VectorEnv``.
+Each Kiln task writes its dynamics once, on arrays with a leading copy axis, and takes its options from
+a frozen dataclass. ``envs.task_env`` runs one copy as a ``gymnasium.Env``, ``envs.task_vector`` runs
+many as a ``gymnasium.vector.VectorEnv``, and ``envs.task_entry`` registers both for any dynamics class.
 Keeping a single batched definition means the single and vector forms cannot drift apart.
 """
 
 from __future__ import annotations
 
 import abc
+from typing import Any, ClassVar
 
 import numpy as np
 from gymnasium import spaces
@@ -16,13 +18,25 @@ from gymnasium import spaces
 class BatchedDynamics(abc.ABC):
     """Dynamics of one task on a batch of copies (states float64, shape (count, state_size)).
 
-    Subclasses set ``observation_space`` and ``action_space`` (float32 Boxes for a single copy) and
-    ``state_size``, and implement the three methods below.
+    Subclasses set the class attribute ``options_type``: a frozen dataclass whose fields are the task's
+    options (the keyword arguments of ``gymnasium.make``), with defaults, validated in its
+    ``__post_init__`` (raising ``envs.errors.TaskError``). Their ``__init__(options)`` calls this one and
+    sets ``observation_space`` and ``action_space`` (float32 Boxes for a single copy) and ``state_size``;
+    they implement the three abstract methods below.
     """
 
+    options_type: ClassVar[type]
     observation_space: spaces.Box
     action_space: spaces.Box
     state_size: int
+
+    def __init__(self, options: Any) -> None:
+        """Keep the task's options.
+
+        Args:
+            options: An instance of ``options_type``, already validated.
+        """
+        self.options = options
 
     @abc.abstractmethod
     def sample_start(self, rng: np.random.Generator, count: int) -> np.ndarray:

@@ -1,4 +1,4 @@
-"""One copy of a Kiln task as a ``gymnasium.Env`` (the registered ``entry_point``)."""
+"""One copy of a Kiln task as a ``gymnasium.Env`` (what the registered ``entry_point`` builds)."""
 
 from __future__ import annotations
 
@@ -7,6 +7,7 @@ from typing import Any
 import gymnasium as gym
 import numpy as np
 
+from envs.errors import TaskError
 from envs.task_base import BatchedDynamics
 
 
@@ -28,10 +29,10 @@ class TaskEnv(gym.Env[np.ndarray, np.ndarray]):
             render_mode: Must be None: Kiln's tasks are numeric and draw nothing.
 
         Raises:
-            ValueError: If a render mode is requested.
+            TaskError: If a render mode is requested.
         """
         if render_mode is not None:
-            raise ValueError(
+            raise TaskError(
                 f"Kiln's own tasks cannot render (got render_mode={render_mode!r}); pass render_mode=None"
             )
         self.render_mode = None

@@ -1,4 +1,4 @@
-"""Many copies of a Kiln task as one ``gymnasium.vector.VectorEnv`` (the ``vector_entry_point``).
+"""Many copies of a Kiln task as one ``gymnasium.vector.VectorEnv`` (what ``vector_entry_point`` builds).
 
 All copies step together in numpy, so ``gymnasium.make_vec(id, num_envs=N,
 vectorization_mode="vector_entry_point")`` costs about as much as one copy for small N.
@@ -12,6 +12,7 @@ import numpy as np
 from gymnasium.vector import AutoresetMode, VectorEnv
 from gymnasium.vector.utils import batch_space
 
+from envs.errors import TaskError
 from envs.task_base import BatchedDynamics
 
 _SUPPORTED_MODES = (AutoresetMode.NEXT_STEP, AutoresetMode.SAME_STEP)
@@ -44,13 +45,13 @@ class TaskVectorEnv(VectorEnv):
             autoreset_mode: AutoresetMode.NEXT_STEP or AutoresetMode.SAME_STEP (or their values).
 
         Raises:
-            ValueError: If num_envs, max_episode_steps or autoreset_mode is invalid.
+            TaskError: If num_envs, max_episode_steps or autoreset_mode is invalid.
         """
         if isinstance(num_envs, bool) or int(num_envs) != num_envs or num_envs < 1:
-            raise ValueError(f"num_envs must be an integer >= 1, got {num_envs!r}; pass e.g. 8")
+            raise TaskError(f"num_envs must be an integer >= 1, got {num_envs!r}; pass e.g. 8")
         limit = max_episode_steps
         if limit is not None and (isinstance(limit, bool) or int(limit) != limit or limit < 1):
-            raise ValueError(
+            raise TaskError(
                 f"max_episode_steps must be an integer >= 1 or None, got {max_episode_steps!r}; pass e.g. 200"
             )
         try:
@@ -58,7 +59,7 @@ class TaskVectorEnv(VectorEnv):
         except ValueError:
             mode = None
         if mode not in _SUPPORTED_MODES:
-            raise ValueError(
+            raise TaskError(
                 f"autoreset_mode must be NEXT_STEP or SAME_STEP, got {autoreset_mode!r}; "
                 "pass gymnasium.vector.AutoresetMode.NEXT_STEP"
             )

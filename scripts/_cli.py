@@ -18,7 +18,7 @@ from hydra.errors import HydraException
 from omegaconf import OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 
-from agents.errors import KilnError
+from agents.errors import USER_ERRORS, KilnError
 from agents.presets import CONFIG_DIR, compose_config, hydra_message
 
 EXIT_BAD_INPUT = 2
@@ -32,10 +32,10 @@ def fail(message: str) -> NoReturn:
 
 
 def guarded(fn: Callable[[], T]) -> T:
-    """Run ``fn``; a :class:`KilnError` becomes a one-line message and exit code 2."""
+    """Run ``fn``; a :class:`KilnError` or a task's error becomes a one-line message and exit code 2."""
     try:
         return fn()
-    except KilnError as err:
+    except USER_ERRORS as err:
         fail(str(err))
 
 

@@ -12,6 +12,7 @@ from gymnasium.utils.env_checker import check_env
 from scipy import stats
 
 import envs  # noqa: F401  (registers the kiln/ ids)
+from envs.errors import TaskError
 from envs.bandit_solution import (
     bandit_alpha_for_entropy,
     bandit_soft_optimum,
@@ -207,3 +208,19 @@ def test_vector_env_pays_each_copy() -> None:
     # 2.0 is clipped to 1: -2 (0.5)^2 = -0.5.
     np.testing.assert_allclose(rewards, [0.0, -0.5, -0.5], atol=1e-12)
     assert terminated.all() and not truncated.any()
+
+
+@pytest.mark.parametrize(
+    ("config", "message"),
+    [
+        ({"stiffness": 0.0}, "stiffness must be finite and > 0"),
+        ({"stiffness": True}, "stiffness must be a finite number"),
+        ({"target": "middle"}, "target must be a finite number"),
+        ({"target": float("nan")}, "target must be a finite number"),
+        ({"width": 1.0}, "unknown option"),
+    ],
+)
+def test_bad_config_raises_task_error(config: dict, message: str) -> None:
+    # Definitions: the loss curvature k is positive (else there is no best position); a0 is a number.
+    with pytest.raises(TaskError, match=message):
+        gym.make("kiln/DamperTrim-v0", **config)

@@ -11,14 +11,14 @@ from gymnasium.utils.env_checker import check_env
 from gymnasium.vector import AutoresetMode
 
 import envs  # noqa: F401  (registers the kiln/ ids)
-from envs.dock import CarDockEnv
+from envs.errors import TaskError
 
 # Defaults used in the hand arithmetic below: dt 0.1, push_gain 1, friction 0.2, rail [0, 2], dock at
 # 1.5 +- 0.05 at speed <= 0.2, step_cost 0.1, effort_cost 0.01, dock_bonus 10.
 
 
 def step_from(state: list[float], push: float) -> tuple[np.ndarray, float, bool, bool]:
-    env = CarDockEnv()
+    env = gym.make("kiln/CarDock-v0")
     env.reset(seed=0, options={"start_state": state})
     observation, reward, terminated, truncated, _ = env.step(np.array([push], dtype=np.float32))
     return observation, reward, terminated, truncated
@@ -127,8 +127,8 @@ def test_env_passes_gymnasium_checker() -> None:
         ({"render_mode": "rgb_array"}, "render"),
     ],
 )
-def test_bad_config_raises_value_error(config: dict, message: str) -> None:
-    # Definitions: the dock lies on the rail; a time step is positive; options are CarDockConfig fields;
+def test_bad_config_raises_task_error(config: dict, message: str) -> None:
+    # Definitions: the dock lies on the rail; a time step is positive; options are CarDockOptions fields;
     # the task declares no render modes (metadata["render_modes"] == []), so none can be requested.
-    with pytest.raises(ValueError, match=message):
-        CarDockEnv(**config)
+    with pytest.raises(TaskError, match=message):
+        gym.make("kiln/CarDock-v0", **config)

@@ -12,7 +12,8 @@ import scipy.integrate
 from gymnasium.utils.env_checker import check_env
 
 import envs  # noqa: F401  (registers the kiln/ ids)
-from envs.lqr import FiringHoldEnv, LinearQuadraticModel
+from envs.errors import TaskError
+from envs.lqr import LinearQuadraticModel
 from envs.lqr_solution import linear_gaussian_soft_value, soft_lq_solution
 
 ALPHA = 0.1
@@ -230,7 +231,7 @@ def test_one_dimensional_config_steps_by_hand() -> None:
 
 
 def test_default_two_state_step_by_hand() -> None:
-    env = FiringHoldEnv(noise_covariance=[0.0, 0.0])
+    env = gym.make("kiln/FiringHold-v0", noise_covariance=[0.0, 0.0])
     env.reset(options={"start_state": [1.0, -2.0]})
     observation, reward, _, _, _ = env.step(np.array([1.0], dtype=np.float32))
     # Hand arithmetic with A = [[0.85, 0.10], [0.05, 0.93]], B = [0.5, 0], Q = diag(1, 0.5), R = 0.1:
@@ -267,11 +268,11 @@ def test_env_passes_gymnasium_checker_and_seeding_repeats() -> None:
         ({"burner": 1.0}, "unknown"),
     ],
 )
-def test_bad_config_raises_value_error(config: dict, message: str) -> None:
+def test_bad_config_raises_task_error(config: dict, message: str) -> None:
     # Definitions: a cost or covariance matrix is symmetric positive semi-definite (the input cost
     # strictly definite, or the soft policy's covariance (alpha / 2) M^-1 can be undefined).
-    with pytest.raises(ValueError, match=message):
-        FiringHoldEnv(**config)
+    with pytest.raises(TaskError, match=message):
+        gym.make("kiln/FiringHold-v0", **config)
 
 
 def test_zero_temperature_is_ordinary_discounted_lqg() -> None:

@@ -9,7 +9,9 @@ import numpy as np
 import pytest
 
 import envs  # noqa: F401  (registers the kiln/ ids)
+from envs.errors import TaskError
 from envs.registration import KILN_TASKS, register_kiln_tasks
+from envs.task_entry import BatchEntry, SingleCopyEntry
 
 # Deterministic settings (no noise, fixed start) so two vectorisations must agree exactly.
 DETERMINISTIC = {
@@ -20,12 +22,12 @@ DETERMINISTIC = {
 
 
 def test_ids_are_registered_once_and_re_registration_is_silent() -> None:
-    for task_id, (entry_point, vector_entry_point, time_limit) in KILN_TASKS.items():
+    for task_id, (dynamics_type, time_limit) in KILN_TASKS.items():
         spec = gym.spec(task_id)
         assert spec.namespace == "kiln"
         assert (spec.entry_point, spec.vector_entry_point, spec.max_episode_steps) == (
-            entry_point,
-            vector_entry_point,
+            SingleCopyEntry(task_id, dynamics_type),
+            BatchEntry(task_id, dynamics_type),
             time_limit,
         )
     # Gymnasium warns "Overriding environment ..." when an id is registered twice; idempotent means none.
@@ -33,6 +35,33 @@ def test_ids_are_registered_once_and_re_registration_is_silent() -> None:
         warnings.simplefilter("error")
         register_kiln_tasks()
     assert len([name for name in gym.registry if name.startswith("kiln/")]) == len(KILN_TASKS)
+
+
+def test_time_limits_are_kept() -> None:
+    # The limits registered since the tasks were added (kept across refactors): FiringHold and CarDock
+    # run 200 steps; DamperTrim has none, as it terminates itself after one step.
+    limits = {task_id: gym.spec(task_id).max_episode_steps for task_id in KILN_TASKS}
+    assert limits == {"kiln/FiringHold-v0": 200, "kiln/DamperTrim-v0": None, "kiln/CarDock-v0": 200}
+
+
+# Each task's option names as its module documents them (the keyword arguments users put in env.kwargs).
+OPTIONS = {
+    "kiln/FiringHold-v0": "state_matrix, input_matrix, state_cost, input_cost, noise_covariance, start_std, "
+    "action_bound",
+    "kiln/DamperTrim-v0": "stiffness, target",
+    "kiln/CarDock-v0": "dt, push_gain, friction, rail_length, dock_position, dock_tolerance, dock_speed, "
+    "start_low, start_high, step_cost, effort_cost, dock_bonus",
+}
+
+
+@pytest.mark.parametrize("task_id", sorted(KILN_TASKS))
+def test_unknown_option_names_it_and_lists_the_task_options(task_id: str) -> None:
+    expected = f"unknown option(s) colour for {task_id}; its options are {OPTIONS[task_id]}"
+    with pytest.raises(TaskError) as single:
+        gym.make(task_id, colour="red")
+    with pytest.raises(TaskError) as batched:
+        gym.make_vec(task_id, num_envs=2, vectorization_mode="vector_entry_point", colour="red")
+    assert str(single.value) == str(batched.value) == expected
 
 
 @pytest.mark.parametrize("task_id", sorted(KILN_TASKS))
