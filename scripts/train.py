@@ -18,10 +18,11 @@ from hydra.core.hydra_config import HydraConfig
 from omegaconf import DictConfig, OmegaConf
 
 from agents.config import parse_run_config
+from agents.presets import CONFIG_DIR
 from agents.settings import resolve_target_entropy
 from agents.trainer import POLICY, train
 from envs.make import make_env
-from scripts._cli import check_overrides, guarded
+from kiln_cli._cli import check_overrides, guarded, plural
 
 
 def check_run_config(raw: dict[str, Any]) -> None:
@@ -43,16 +44,16 @@ def report(run_dir: Path, result: dict[str, Any]) -> None:
     det = "deterministic" if result.get("eval_deterministic", True) else "stochastic"
     print(f"\nrun folder   {run_dir}")
     print(f"TensorBoard  tensorboard --logdir {run_dir}")
-    print(f"policy       {run_dir / POLICY}   (evaluate: python scripts/evaluate.py policy={run_dir})")
+    print(f"policy       {run_dir / POLICY}   (evaluate: kiln evaluate policy={run_dir})")
     print(
-        f"evaluation   {ev['episodes']} {det} episodes of {result['env_id']} after {result['steps']} steps: "
+        f"evaluation   {plural(ev['episodes'], det + ' episode')} of {result['env_id']} after {result['steps']} steps: "
         f"return {ev['return_mean']:.1f} ± {ev['return_std']:.1f} (min {ev['return_min']:.1f}, max {ev['return_max']:.1f})"
     )
     ups = result.get("updates_per_s")
     print(f"time         {result['wall_time_s']:.0f} s wall, {result['updates']} updates" + (f" at {ups:.0f}/s" if ups else ""))
 
 
-@hydra.main(config_path="../configs", config_name="train", version_base="1.3")
+@hydra.main(config_path=str(CONFIG_DIR), config_name="train", version_base="1.3")
 def _hydra_entry(cfg: DictConfig) -> float:
     run_dir = Path(HydraConfig.get().runtime.output_dir)
     raw = OmegaConf.to_container(cfg, resolve=True)
