@@ -55,7 +55,7 @@ def evaluate_policy(
             env, lambda o: policy.act(o, deterministic, generator), [seed + i for i in range(episodes)]
         )
     except gym.error.DependencyNotInstalled as err:
-        raise KilnError(f"video needs a renderer that is not installed ({err}): pip install 'kiln[video]'") from None
+        raise KilnError(f"video needs a renderer that is not installed ({err}): pip install 'kiln-sac[video]'") from None
     except Exception as err:
         if "OpenGL" in str(err) or "GL" in type(err).__name__:
             raise KilnError(
@@ -73,7 +73,7 @@ def _with_video(env: gym.Env, folder: Path) -> gym.Env:
         import moviepy  # noqa: F401  (Gymnasium's recorder needs it; check before any episode runs)
     except ImportError:
         env.close()
-        raise KilnError("video needs moviepy: pip install 'kiln[video]', or drop video") from None
+        raise KilnError("video needs moviepy: pip install 'kiln-sac[video]', or drop video") from None
     from gymnasium.wrappers import RecordVideo
 
     return RecordVideo(env, str(folder), episode_trigger=lambda _: True, name_prefix="rollout", disable_logger=True)

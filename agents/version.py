@@ -3,6 +3,6 @@
 from importlib.metadata import PackageNotFoundError, version
 
 try:
-    KILN_VERSION = version("kiln")
+    KILN_VERSION = version("kiln-sac")
 except PackageNotFoundError:  # running from a source tree that was never installed
     KILN_VERSION = "0.0.0+source"

@@ -7,19 +7,17 @@ a typo ends with one line, exit code 2, and no folder written.
 
 from __future__ import annotations
 
+import argparse
 import sys
 from collections.abc import Callable
 from typing import Any, NoReturn, TypeVar
 
-from hydra import compose, initialize_config_dir
-from hydra.core.global_hydra import GlobalHydra
 from hydra.core.override_parser.overrides_parser import OverridesParser
 from hydra.errors import HydraException
 from omegaconf import OmegaConf
-from omegaconf.errors import OmegaConfBaseException
 
 from agents.errors import USER_ERRORS, KilnError
-from agents.presets import CONFIG_DIR, compose_config, hydra_message
+from agents.presets import compose_config, compose_node, use_user_presets
 
 EXIT_BAD_INPUT = 2
 T = TypeVar("T")
@@ -37,6 +35,19 @@ def guarded(fn: Callable[[], T]) -> T:
         return fn()
     except USER_ERRORS as err:
         fail(str(err))
+
+
+class OneLineParser(argparse.ArgumentParser):
+    """argparse that reports a bad argument as one ``kiln: error:`` line (exit 2) instead of usage text."""
+
+    def error(self, message: str) -> NoReturn:
+        """Print the problem and where the options are listed, then exit 2."""
+        fail(f"{message}; fix: see `{self.prog} --help`")
+
+
+def plural(count: int, word: str) -> str:
+    """``1 episode``, ``2 episodes``: the count with the word in the right number."""
+    return f"{count} {word}" if count == 1 else f"{count} {word}s"
 
 
 def expand_overrides(args: list[str]) -> list[list[str]]:
@@ -75,16 +86,8 @@ def preset_sweep_params(config_name: str, args: list[str]) -> list[str]:
     except HydraException as err:
         raise KilnError(f"cannot parse the overrides: {str(err).strip().splitlines()[0]}") from None
     composable = [o.input_line or "" for o in parsed if not o.is_sweep_override()]
-    GlobalHydra.instance().clear()
-    try:
-        with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
-            cfg = compose(config_name=config_name, overrides=composable, return_hydra_config=True)
-        node = cfg.hydra.sweeper.get("params")
-        params = OmegaConf.to_container(node, resolve=False) if node else {}
-    except (HydraException, OmegaConfBaseException) as err:
-        raise KilnError(hydra_message(err, config_name)) from None
-    finally:
-        GlobalHydra.instance().clear()
+    node = compose_node(config_name, composable, with_hydra=True).hydra.sweeper.get("params")
+    params = OmegaConf.to_container(node, resolve=False) if node else {}
     given = {a.split("=", 1)[0].lstrip("+~") for a in plain}
     return [f"{key}={value}" for key, value in params.items() if key not in given]
 
@@ -92,6 +95,7 @@ def preset_sweep_params(config_name: str, args: list[str]) -> list[str]:
 def check_overrides(config_name: str, args: list[str], check: Callable[[dict[str, Any]], None]) -> None:
     """Compose every variant of the command line (sweep presets' values included) and run ``check``
     on it; exit 2 on the first problem."""
+    guarded(use_user_presets)  # before Hydra's help too: it lists the user's presets
     if any(a in ("--help", "-h", "--hydra-help", "--info") or a.startswith("--cfg") or a == "-c" for a in args):
         return  # Hydra's own informational modes: let Hydra answer them.
     args = args + guarded(lambda: preset_sweep_params(config_name, args))

@@ -1,8 +1,8 @@
 """Compare training runs grouped by a config key and write a report folder.
 
-Example::
+Example (the folder `kiln train sweep=target_entropy` makes on the default task)::
 
-    python scripts/compare.py sweeps/entropy --group-by agent.temperature.target_entropy
+    kiln compare sweeps/pendulum_target_entropy --group-by agent.temperature.target_entropy
 
 Exit status: 0 on success, 2 for input that cannot be compared (one line on stderr saying why and
 what to do).
@@ -14,29 +14,21 @@ import argparse
 import sys
 from collections.abc import Sequence
 from pathlib import Path
-from typing import NoReturn
 
-from agents.compare.errors import CompareInputError
 from agents.compare.grouping import TARGET_ENTROPY_KEY
-from agents.compare.report import check_out_dir, default_out_dir, terminal_summary, write_report
+from agents.compare.report import check_out_dir, default_out_dir, input_root, terminal_summary, write_report
 from agents.compare.runs import load_runs
-from agents.compare.summary import summarise
-
-PROGRAM = "compare"
-
-
-class _Parser(argparse.ArgumentParser):
-    """argparse with a one-line error, like every other input problem of this command."""
-
-    def error(self, message: str) -> NoReturn:
-        self.exit(2, f"kiln: error: {message}; fix: see python scripts/compare.py --help\n")
+from agents.compare.summary import Comparison, summarise
+from kiln_cli._cli import OneLineParser, guarded
 
 
-def _parser() -> argparse.ArgumentParser:
-    parser = _Parser(
-        prog=PROGRAM,
+def _parser() -> OneLineParser:
+    parser = OneLineParser(
+        prog="kiln compare",
         description="Compare Kiln runs grouped by a config key: IQM with bootstrap CIs, learning curves, "
         "entropy and temperature, performance profiles and probability of improvement.",
+        epilog="example: kiln compare sweeps/pendulum_target_entropy (the folder of "
+        "`kiln train sweep=target_entropy` on the default task)",
     )
     parser.add_argument("paths", nargs="+", type=Path, metavar="DIR",
                         help="sweep directories (searched for runs) and/or run directories")
@@ -57,6 +49,30 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _compare(args: argparse.Namespace, out_dir: Path) -> Comparison:
+    """Load, summarise and write the report; input problems raise CompareInputError (a KilnError)."""
+    check_out_dir(out_dir)
+    skipped: list[Path] = []
+    runs = load_runs(args.paths, skipped)
+    notes = []
+    if skipped:
+        listed = ", ".join(str(path) for path in skipped[:3]) + (" and more" if len(skipped) > 3 else "")
+        notes.append(f"skipped {len(skipped)} folder(s) with config.yaml but no event files or "
+                     f"result.json yet: {listed}")
+    comparison = summarise(
+        runs,
+        group_by=args.group_by,
+        metric=args.metric,
+        step=args.step,
+        confidence=args.confidence,
+        n_resamples=args.resamples,
+        seed=args.resample_seed,
+        notes=notes,
+    )
+    write_report(comparison, out_dir, runs_root=input_root(args.paths))
+    return comparison
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Runs the command.
 
@@ -64,7 +80,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         argv: Arguments without the program name (default: the command line).
 
     Returns:
-        The exit status.
+        The exit status (bad input exits 2 through :func:`kiln_cli._cli.fail` instead).
     """
     parser = _parser()
     args = parser.parse_args(argv)
@@ -75,29 +91,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.step is not None and args.step < 0:
         parser.error("--step must be 0 or more")
     out_dir = args.out if args.out is not None else default_out_dir(args.paths)
-    try:
-        check_out_dir(out_dir)
-        skipped: list[Path] = []
-        runs = load_runs(args.paths, skipped)
-        notes = []
-        if skipped:
-            listed = ", ".join(str(path) for path in skipped[:3]) + (" and more" if len(skipped) > 3 else "")
-            notes.append(f"skipped {len(skipped)} folder(s) with config.yaml but no event files or "
-                         f"result.json yet: {listed}")
-        comparison = summarise(
-            runs,
-            group_by=args.group_by,
-            metric=args.metric,
-            step=args.step,
-            confidence=args.confidence,
-            n_resamples=args.resamples,
-            seed=args.resample_seed,
-            notes=notes,
-        )
-        write_report(comparison, out_dir)
-    except CompareInputError as error:
-        print(f"kiln: error: {error}", file=sys.stderr)
-        return 2
+    comparison = guarded(lambda: _compare(args, out_dir))
     print(terminal_summary(comparison, out_dir))
     return 0
 

@@ -20,19 +20,26 @@ from omegaconf import DictConfig, OmegaConf
 from agents.errors import ConfigError, KilnError
 from agents.policy_eval import evaluate_policy
 from agents.policy_io import load_policy, resolve_policy_folder
-from scripts._cli import check_overrides, guarded
+from agents.presets import CONFIG_DIR
+from kiln_cli._cli import check_overrides, guarded, plural
 
 
 def check_evaluate_config(raw: dict[str, Any]) -> None:
     """Check values and that the policy folder loads, before anything runs."""
     if raw.get("policy") in (None, "???", ""):
-        raise ConfigError("no policy given: python scripts/evaluate.py policy=<run folder or policy folder>")
+        raise ConfigError("no policy given: kiln evaluate policy=<run folder or policy folder>")
     for key in ("episodes",):
         if isinstance(raw[key], bool) or not isinstance(raw[key], int) or raw[key] < 1:
             raise ConfigError(f"{key} must be a positive integer, got {raw[key]!r}")
     if isinstance(raw["seed"], bool) or not isinstance(raw["seed"], int) or raw["seed"] < 0:
         raise ConfigError(f"seed must be a non-negative integer, got {raw['seed']!r}")
     load_policy(Path(raw["policy"]))
+
+
+def episodes_line(mode: str, episodes: int, seed: int) -> str:
+    """``deterministic, 3 episodes, reset seeds 5..7`` (one episode: ``reset seed 5``)."""
+    seeds = f"reset seed {seed}" if episodes == 1 else f"reset seeds {seed}..{seed + episodes - 1}"
+    return f"{mode}, {plural(episodes, 'episode')}, {seeds}"
 
 
 def table(summary: dict[str, float]) -> str:
@@ -73,13 +80,13 @@ def run(raw: dict[str, Any]) -> Path:
         raise KilnError(f"cannot write {out} ({err.strerror}): choose another out=<path>") from None
     trained = spec.get("config", {}).get("steps")
     print(f"policy   {folder}  ({spec['env']['id']}, {trained} training steps, Kiln {spec.get('kiln_version')})")
-    print(f"mode     {mode}, {raw['episodes']} episodes, reset seeds {raw['seed']}..{raw['seed'] + raw['episodes'] - 1}")
+    print(f"mode     {episodes_line(mode, raw['episodes'], raw['seed'])}")
     print(table(result["summary"]))
     print(f"wrote    {out}" + (f"\nvideos   {video_dir}" if video_dir else ""))
     return out
 
 
-@hydra.main(config_path="../configs", config_name="evaluate", version_base="1.3")
+@hydra.main(config_path=str(CONFIG_DIR), config_name="evaluate", version_base="1.3")
 def _hydra_entry(cfg: DictConfig) -> None:
     guarded(lambda: run(OmegaConf.to_container(cfg, resolve=True)))
 

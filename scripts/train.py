@@ -16,9 +16,10 @@ import hydra
 from hydra.core.hydra_config import HydraConfig
 from omegaconf import DictConfig, OmegaConf
 
+from agents.presets import CONFIG_DIR
 from agents.run_folder import RunFolder, RunResult
 from agents.trainer import check_run, train
-from scripts._cli import check_overrides, guarded
+from kiln_cli._cli import check_overrides, guarded, plural
 
 
 def report(run_dir: Path, result: RunResult) -> None:
@@ -43,7 +44,7 @@ def report(run_dir: Path, result: RunResult) -> None:
     print(f"time         {result.wall_time_s:.0f} s wall, {result.updates} updates" + (f" at {ups:.0f}/s" if ups else ""))
 
 
-@hydra.main(config_path="../configs", config_name="train", version_base="1.3")
+@hydra.main(config_path=str(CONFIG_DIR), config_name="train", version_base="1.3")
 def _hydra_entry(cfg: DictConfig) -> float:
     run_dir = Path(HydraConfig.get().runtime.output_dir)
     raw = OmegaConf.to_container(cfg, resolve=True)

@@ -9,25 +9,18 @@ Exit codes: 0 all checks passed, 1 a check failed, 2 bad arguments.
 
 from __future__ import annotations
 
-import argparse
 import json
+import os
 import sys
 from pathlib import Path
-from typing import NoReturn
 
-from scripts._cli import fail
-
-
-class _Parser(argparse.ArgumentParser):
-    """argparse that reports a bad argument as one ``kiln: error:`` line (exit 2) instead of usage text."""
-
-    def error(self, message: str) -> NoReturn:
-        fail(f"{message} (see `python scripts/verify.py --help`)")
+from agents.presets import PRESETS_ENV
+from kiln_cli._cli import OneLineParser, fail
 
 
 def main(argv: list[str] | None = None) -> int:
     """Parse the arguments, run the checks, print the table; return the exit code."""
-    parser = _Parser(description=__doc__.splitlines()[0])
+    parser = OneLineParser(prog="kiln verify", description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="solver checks only (seconds), no training")
     parser.add_argument("--seed", type=int, default=0, help="seed of the training runs (default 0)")
     parser.add_argument("--out", type=Path, help="also write the table as JSON to this file")
@@ -40,6 +33,9 @@ def main(argv: list[str] | None = None) -> int:
     if args.out is not None and args.out.is_dir():
         fail(f"--out {args.out} is a folder; give a file name such as {args.out / 'verify.json'}")
 
+    # The checks compare Kiln's own task presets with their exact answers; a user preset of the same
+    # name would change the task under test, so user preset folders are not searched here.
+    os.environ.pop(PRESETS_ENV, None)
     from agents.verify import format_table, report_json, run_verify  # torch loads only past the checks
 
     report = run_verify(args.quick, args.seed, say=lambda line: print(line, flush=True))

@@ -4,9 +4,9 @@ event files and written as a report folder.
 
 Typical use::
 
-    runs = load_runs([Path("sweeps/entropy")])
-    comparison = summarise(runs, group_by="agent.temperature.target_entropy")
-    write_report(comparison, Path("sweeps/entropy/report"))
+    sweep = Path("sweeps/pendulum_target_entropy")  # made by `kiln train sweep=target_entropy`
+    comparison = summarise(load_runs([sweep]), group_by="agent.temperature.target_entropy")
+    write_report(comparison, sweep / "report", runs_root=sweep)
 """
 
 from agents.compare.bootstrap import Interval, bootstrap_distribution, iqm_interval, percentile_interval

@@ -1,11 +1,13 @@
 """The one error the comparison raises for input it cannot use."""
 
+from agents.errors import KilnError
 
-class CompareInputError(Exception):
+
+class CompareInputError(KilnError):
     """Input the comparison cannot use: the message names the problem and the fix.
 
-    The command line prints the message as a single line and exits with status 2, so the
-    message must be one line that a user can act on without reading code.
+    Part of Kiln's error family: every command prints it as ``kiln: error: <message>`` and exits
+    with status 2, so the message must be one line that a user can act on without reading code.
     """
 
     def __init__(self, problem: str, fix: str) -> None:

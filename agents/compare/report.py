@@ -28,6 +28,19 @@ PROFILE_PNG = "performance_profile.png"
 FINAL_PNG = "final_scores.png"
 
 
+def input_root(paths: Sequence[Path]) -> Path:
+    """The folder the compared runs are under: the one input folder, or the inputs' common folder.
+
+    Args:
+        paths: The sweep and/or run directories compared.
+
+    Returns:
+        The absolute folder.
+    """
+    resolved = [path.resolve() for path in paths]
+    return resolved[0] if len(resolved) == 1 else Path(os.path.commonpath(resolved))
+
+
 def default_out_dir(paths: Sequence[Path]) -> Path:
     """Where the report goes when no folder is given: ``report/`` in the (common) input folder.
 
@@ -37,9 +50,17 @@ def default_out_dir(paths: Sequence[Path]) -> Path:
     Returns:
         The report folder.
     """
-    resolved = [path.resolve() for path in paths]
-    base = resolved[0] if len(resolved) == 1 else Path(os.path.commonpath(resolved))
-    return base / REPORT_FOLDER
+    return input_root(paths) / REPORT_FOLDER
+
+
+def _shown(path: Path, root: Path | None) -> str:
+    """A run's path as the report files show it: relative to ``root`` when under it.
+
+    Relative paths keep the report readable and valid when the sweep folder is moved or shared.
+    """
+    if root is not None and path.resolve().is_relative_to(root.resolve()):
+        return path.resolve().relative_to(root.resolve()).as_posix() or "."
+    return str(path)
 
 
 def check_out_dir(out_dir: Path) -> None:
@@ -137,7 +158,7 @@ _GROUP_HEADER = [
 ]
 
 
-def _numbers(comparison: Comparison) -> dict[str, Any]:
+def _numbers(comparison: Comparison, root: Path | None) -> dict[str, Any]:
     """Every number of the comparison as nested plain data for comparison.json."""
     settings = comparison.settings
     return {
@@ -164,7 +185,7 @@ def _numbers(comparison: Comparison) -> dict[str, Any]:
         ],
         "runs": [
             {
-                "run": row.path, "group": row.group, "seed": row.seed, "step": row.logged_step,
+                "run": _shown(row.path, root), "group": row.group, "seed": row.seed, "step": row.logged_step,
                 "score": row.score, "entropy_nats": row.entropy, "alpha": row.alpha,
                 "target_entropy": row.target_entropy,
             }
@@ -188,7 +209,7 @@ def _numbers(comparison: Comparison) -> dict[str, Any]:
     }
 
 
-def _markdown(comparison: Comparison) -> str:
+def _markdown(comparison: Comparison, root: Path | None) -> str:
     """report.md: summary, table, figures, runs, and how to read it."""
     settings = comparison.settings
     percent = f"{settings.confidence:.0%}"
@@ -215,12 +236,13 @@ def _markdown(comparison: Comparison) -> str:
         f"Band: {percent} CI.",
         "", f"![performance profile]({PROFILE_PNG})",
         "", "## Runs", "",
+        *([f"Run folders relative to the compared folder `{root.name}/`.", ""] if root is not None else []),
         "| run | group | seed | step | score | entropy (nats) | α |",
         "|---|---|---|---|---|---|---|",
     ]
     for row in comparison.runs:
-        lines.append(f"| {row.path} | {row.group} | {row.seed} | {row.logged_step:,} | {row.score:.6g} | "
-                     f"{row.entropy:.4g} | {row.alpha:.4g} |")
+        lines.append(f"| {_shown(row.path, root)} | {row.group} | {row.seed} | {row.logged_step:,} | "
+                     f"{row.score:.6g} | {row.entropy:.4g} | {row.alpha:.4g} |")
     lines += [
         "", "## Files", "",
         f"{GROUPS_CSV}, {RUNS_CSV}, {CURVES_CSV}, {PROFILES_CSV}: the numbers above in full precision; "
@@ -230,12 +252,14 @@ def _markdown(comparison: Comparison) -> str:
     return "\n".join(lines)
 
 
-def write_report(comparison: Comparison, out_dir: Path) -> list[Path]:
+def write_report(comparison: Comparison, out_dir: Path, runs_root: Path | None = None) -> list[Path]:
     """Writes the report files into ``out_dir``, each atomically; other files there are kept.
 
     Args:
         comparison: The comparison.
         out_dir: Report folder (created if missing).
+        runs_root: The compared folder (see :func:`input_root`); run paths in the files are shown
+            relative to it. None shows them as loaded.
 
     Returns:
         The files written.
@@ -258,8 +282,8 @@ def write_report(comparison: Comparison, out_dir: Path) -> list[Path]:
         write_csv(
             target(RUNS_CSV),
             ["run", "group", "seed", "step", "score", "entropy_nats", "alpha", "target_entropy"],
-            [[row.path, row.group, row.seed, row.logged_step, row.score, row.entropy, row.alpha,
-              row.target_entropy] for row in comparison.runs],
+            [[_shown(row.path, runs_root), row.group, row.seed, row.logged_step, row.score, row.entropy,
+              row.alpha, row.target_entropy] for row in comparison.runs],
         )
         write_csv(
             target(CURVES_CSV),
@@ -277,13 +301,13 @@ def write_report(comparison: Comparison, out_dir: Path) -> list[Path]:
              for level, fraction, low, high in zip(profile.thresholds, profile.fraction, profile.low,
                                                     profile.high, strict=True)],
         )
-        write_json(target(NUMBERS_JSON), _numbers(comparison))
+        write_json(target(NUMBERS_JSON), _numbers(comparison, runs_root))
         plots.save_png(plots.learning_curves(comparison), target(CURVES_PNG))
         plots.save_png(plots.entropy_and_alpha(comparison), target(ENTROPY_PNG))
         plots.save_png(plots.performance_profiles(comparison), target(PROFILE_PNG))
         plots.save_png(plots.final_scores(comparison), target(FINAL_PNG))
         # The markdown goes last so that it never points at figures that were not written.
-        write_text(target(MARKDOWN), _markdown(comparison))
+        write_text(target(MARKDOWN), _markdown(comparison, runs_root))
     except OSError as error:
         raise CompareInputError(
             f"cannot write the report to {out_dir} ({error.strerror or type(error).__name__})",

@@ -1,6 +1,7 @@
 """Run Kiln's entry points as a user would: a subprocess in a temporary working folder."""
 
 import os
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -8,12 +9,39 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[2]
 
 
-def run_script(name: str, *args: str, cwd: Path, timeout: float = 600) -> subprocess.CompletedProcess:
-    env = dict(os.environ, PYTHONUNBUFFERED="1")
+def run_script(name: str, *args: str, cwd: Path, timeout: float = 600, env: dict | None = None) -> subprocess.CompletedProcess:
+    env = dict(os.environ, PYTHONUNBUFFERED="1", **(env or {}))
     return subprocess.run(
         [sys.executable, str(REPO / "scripts" / f"{name}.py"), *args],
         cwd=cwd, env=env, capture_output=True, text=True, timeout=timeout,
     )  # fmt: skip
+
+
+def kiln_command() -> list[str]:
+    """The installed ``kiln`` console command of this Python (as the README install makes it), or,
+    where this environment has none, the same entry point through ``python -m``."""
+    installed = shutil.which("kiln", path=str(Path(sys.executable).parent))
+    return [installed] if installed else [sys.executable, "-m", "kiln_cli.command"]
+
+
+def run_kiln(*args: str, cwd: Path, timeout: float = 600, env: dict | None = None) -> subprocess.CompletedProcess:
+    env = dict(os.environ, PYTHONUNBUFFERED="1", **(env or {}))
+    return subprocess.run(
+        [*kiln_command(), *args], cwd=cwd, env=env, capture_output=True, text=True, timeout=timeout,
+    )  # fmt: skip
+
+
+def assert_one_line_error(proc: subprocess.CompletedProcess, *phrases: str) -> str:
+    """Kiln's rule for bad input: exit 2, one ``kiln: error:`` line naming the problem, no traceback,
+    no usage text (requirement of the project; no outside source). Returns the line."""
+    assert proc.returncode == 2, proc.stderr
+    assert "Traceback" not in proc.stderr and "usage:" not in proc.stderr
+    lines = [line for line in proc.stderr.splitlines() if line.strip()]
+    assert len(lines) == 1, proc.stderr
+    assert lines[0].startswith("kiln: error: "), lines[0]
+    for phrase in phrases:
+        assert phrase in lines[0], lines[0]
+    return lines[0]
 
 
 # A run small enough for seconds: the smallest settings that still exercise every part of the loop.

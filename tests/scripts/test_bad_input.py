@@ -5,17 +5,7 @@ import json
 
 import pytest
 
-from tests.scripts.cli import TINY_RUN, run_script
-
-
-def _assert_one_line_error(proc, *phrases):
-    assert proc.returncode == 2, proc.stderr
-    assert "Traceback" not in proc.stderr
-    lines = [line for line in proc.stderr.splitlines() if line.strip()]
-    assert len(lines) == 1, proc.stderr
-    assert lines[0].startswith("kiln: error: ")
-    for phrase in phrases:
-        assert phrase in lines[0]
+from tests.scripts.cli import TINY_RUN, assert_one_line_error, run_script
 
 
 @pytest.mark.parametrize(
@@ -74,13 +64,13 @@ def _assert_one_line_error(proc, *phrases):
 def test_train_rejects_bad_input_before_writing(tmp_path, override, phrases):
     extra = ["agent.replay_capacity=300"] if "batch_size=512" in override else []
     proc = run_script("train", override, *extra, cwd=tmp_path, timeout=120)
-    _assert_one_line_error(proc, *phrases)
+    assert_one_line_error(proc, *phrases)
     assert list(tmp_path.iterdir()) == []  # no run folder was created
 
 
 def test_bad_value_inside_a_sweep_is_caught_before_any_job(tmp_path):
     proc = run_script("train", "-m", "seed=0,1", "agent.actor.lr=3e-4,-1", cwd=tmp_path, timeout=120)
-    _assert_one_line_error(proc, "agent.actor.lr")
+    assert_one_line_error(proc, "agent.actor.lr")
     assert list(tmp_path.iterdir()) == []
 
 
@@ -105,7 +95,7 @@ def test_finished_run_is_left_untouched(tmp_path):
     ],
 )
 def test_evaluate_rejects_bad_input(tmp_path, args, phrases):
-    _assert_one_line_error(run_script("evaluate", *args, cwd=tmp_path, timeout=120), *phrases)
+    assert_one_line_error(run_script("evaluate", *args, cwd=tmp_path, timeout=120), *phrases)
 
 
 def test_evaluate_rejects_incomplete_policy_folder(tmp_path):
@@ -113,5 +103,5 @@ def test_evaluate_rejects_incomplete_policy_folder(tmp_path):
     folder.mkdir()
     (folder / "spec.json").write_text("{}")
     proc = run_script("evaluate", f"policy={folder}", cwd=tmp_path, timeout=120)
-    _assert_one_line_error(proc, "weights.safetensors is missing")
+    assert_one_line_error(proc, "weights.safetensors is missing")
     assert (folder / "spec.json").read_text() == "{}"

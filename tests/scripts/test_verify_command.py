@@ -43,7 +43,7 @@ def test_bad_argument_is_one_line_exit_2(tmp_path, args, phrase):
 
 def test_a_failed_check_exits_1(monkeypatch, capsys):
     import agents.verify
-    from scripts import verify as command
+    from kiln_cli import verify as command
 
     def failing() -> CheckRow:
         return CheckRow("always off", "none", 1.0, 2.0, 1.0, "≤ 5 % rel", False)
