@@ -55,7 +55,7 @@ def _batch(obs_dim: int, act_dim: int, size: int, g: torch.Generator) -> Batch:
 def updates_per_second(obs_dim: int, act_dim: int, settings: AgentSettings, seconds: float = 5.0) -> float:
     """Sustained updates/s of :class:`SoftActorCritic` on random data (after a short warm-up)."""
     g = torch.Generator().manual_seed(0)
-    agent = SoftActorCritic(obs_dim, act_dim, settings, g)
+    agent = SoftActorCritic(obs_dim, act_dim, settings, (-float(act_dim),), g)
     batch = _batch(obs_dim, act_dim, settings.batch_size, g)
     for _ in range(5):
         agent.update(batch)
@@ -70,8 +70,8 @@ def critic_ensemble_speedup(obs_dim: int, act_dim: int, settings: AgentSettings,
     """Time of ``critics`` separate networks run one after another over the batched ensemble (forward + backward)."""
     g = torch.Generator().manual_seed(0)
     s = settings
-    batched = SoftQEnsemble(obs_dim, act_dim, s.hidden_sizes, s.activation, s.critics, g)
-    separate = [SoftQEnsemble(obs_dim, act_dim, s.hidden_sizes, s.activation, 1, g) for _ in range(s.critics)]
+    batched = SoftQEnsemble(obs_dim, act_dim, s.layer_widths, s.nonlinearity, s.critic.count, g)
+    separate = [SoftQEnsemble(obs_dim, act_dim, s.layer_widths, s.nonlinearity, 1, g) for _ in range(s.critic.count)]
     obs, act = torch.randn(s.batch_size, obs_dim, generator=g), torch.rand(s.batch_size, act_dim, generator=g)
 
     def timed(fn) -> float:
@@ -103,5 +103,5 @@ def bench_case(obs_dim: int, act_dim: int, settings: AgentSettings, threads: int
     torch.set_num_threads(threads)
     peak = matmul_peak_gflops()
     ups = updates_per_second(obs_dim, act_dim, settings, seconds)
-    flop = update_flops(obs_dim, act_dim, settings.hidden_sizes, settings.batch_size, settings.critics)
+    flop = update_flops(obs_dim, act_dim, settings.layer_widths, settings.batch_size, settings.critic.count)
     return BenchResult(threads, ups, flop / 1e9, ups * flop / 1e9, peak, ups * flop / 1e9 / peak)

@@ -43,8 +43,8 @@ def main(argv: list[str] | None = None) -> None:
     from agents.benchmark import bench_case, critic_ensemble_speedup
     from agents.settings import AgentSettings
 
-    settings = AgentSettings(hidden_sizes=tuple(args.hidden), batch_size=args.batch)
-    print(f"network: obs {args.obs}, act {args.act}, hidden {args.hidden}, batch {args.batch}, critics {settings.critics}")
+    settings = AgentSettings(layer_widths=tuple(args.hidden), batch_size=args.batch)
+    print(f"network: obs {args.obs}, act {args.act}, hidden {args.hidden}, batch {args.batch}, critics {settings.critic.count}")
     print(f"{'threads':>8}{'updates/s':>11}{'GFLOP/upd':>11}{'GFLOP/s':>9}{'peak':>8}{'of peak':>9}")
     results = []
     for threads in args.threads:
@@ -57,7 +57,7 @@ def main(argv: list[str] | None = None) -> None:
         print(f"{plural(r.threads, 'thread')} vs {base.threads}: "
               f"{speed_ratio(r.updates_per_s / base.updates_per_s)} (updates/s)")  # fmt: skip
     torch.set_num_threads(args.threads[0])
-    print(f"batched critic ensemble vs a loop of {settings.critics} networks ({plural(args.threads[0], 'thread')}): "
+    print(f"batched critic ensemble vs a loop of {settings.critic.count} networks ({plural(args.threads[0], 'thread')}): "
           f"{speed_ratio(critic_ensemble_speedup(args.obs, args.act, settings))}")  # fmt: skip
 
 

@@ -19,7 +19,7 @@ from omegaconf import DictConfig, OmegaConf
 from agents.presets import CONFIG_DIR
 from agents.run_folder import RunFolder, RunResult
 from agents.trainer import check_run, train
-from kiln_cli._cli import check_overrides, guarded, plural
+from kiln_cli._cli import check_overrides, guarded
 
 
 def report(run_dir: Path, result: RunResult) -> None:
