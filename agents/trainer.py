@@ -22,12 +22,11 @@ from omegaconf import OmegaConf
 from agents.action_scale import ActionScale
 from agents.collector import Collector
 from agents.config import RunConfig, parse_run_config
-from agents.diagnostics import q_minus_return
-from agents.evaluation import evaluation_seeds, run_episodes, summarise
 from agents.log_window import LogWindow
 from agents.policy_io import build_spec, save_policy
 from agents.progress import Progress
 from agents.replay import ReplayBuffer
+from agents.rollout import evaluation_seeds, q_minus_return, run_episodes, summarise
 from agents.run_log import RunLog
 from agents.sac import SoftActorCritic
 from agents.settings import resolve_target_entropy

@@ -40,7 +40,7 @@ def main(argv: list[str] | None = None) -> int:
     if args.out is not None and args.out.is_dir():
         fail(f"--out {args.out} is a folder; give a file name such as {args.out / 'verify.json'}")
 
-    from agents.verify import format_table, report_json, run_verify  # torch loads only past the checks
+    from agents.exact.verify import format_table, report_json, run_verify  # torch loads only past the checks
 
     report = run_verify(args.quick, args.seed, say=lambda line: print(line, flush=True))
     print(format_table(report), flush=True)

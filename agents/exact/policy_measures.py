@@ -1,5 +1,8 @@
 """Measure a saved squashed-Gaussian policy in the task's own units: mean actions and soft returns.
 
+The mean action is computed by quadrature (no sampling noise); soft returns come from rollouts of the
+policy's stochastic actions through :func:`agents.rollout.soft_returns`, the one rollout path.
+
 The agent works in (−1, 1); a task's Box may be wider. Its log-density in task units is
 log π_env(a) = log π_agent(a′) − Σᵢ log(half-rangeᵢ) for a = centre + half-range · a′ (change of
 variables for an affine map), which is what the exact answers of ``envs.lqr_solution`` measure.
@@ -7,17 +10,15 @@ variables for an affine map), which is what the exact answers of ``envs.lqr_solu
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 from typing import Any
 
-import gymnasium as gym
 import numpy as np
 import torch
 
 from agents.policy_io import SavedPolicy
+from agents.rollout import Sampler, soft_returns
 
-# (observations [B, n]) -> (actions in task units [B, m], log-density in task units [B])
-Sampler = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
 # Probabilists' Gauss–Hermite nodes for E over a Gaussian: exact for polynomials of degree < 64, so
 # for the smooth tanh of a narrow Gaussian the rule's error is far below float32 rounding.
 _HERMITE_NODES, _HERMITE_WEIGHTS = np.polynomial.hermite_e.hermegauss(32)
@@ -55,7 +56,7 @@ def actor_sampler(policy: SavedPolicy, generator: torch.Generator) -> Sampler:
         generator: Source of the policy's noise.
 
     Returns:
-        A sampler for :func:`soft_returns`.
+        A sampler for :func:`agents.rollout.soft_returns`.
     """
     log_half = float(np.sum(np.log(_half_range(policy))))
 
@@ -69,58 +70,6 @@ def actor_sampler(policy: SavedPolicy, generator: torch.Generator) -> Sampler:
     return sample
 
 
-def soft_returns(
-    sample: Sampler,
-    env_id: str,
-    kwargs: Mapping[str, Any],
-    max_episode_steps: int | None,
-    alpha: float,
-    discount: float,
-    copies: int,
-    seed: int,
-) -> tuple[np.ndarray, np.ndarray]:
-    """Run one episode in each of ``copies`` copies of a task and return their discounted soft returns.
-
-    G = Σₜ γᵗ (rₜ − α log π(aₜ|xₜ)), the entropy term earned at every step including the first (the
-    soft return of ``envs.lqr_solution`` and of Kiln's critics). A copy stops counting once its
-    episode ends, by termination or by the time limit.
-
-    Args:
-        sample: Draws actions and their log-densities, both in task units.
-        env_id: A Kiln task id with a batched ``vector_entry_point``.
-        kwargs: The task's options.
-        max_episode_steps: Time limit; ``None`` keeps the registered one.
-        alpha: Temperature.
-        discount: γ.
-        copies: Number of episodes, run side by side.
-        seed: Reset seed of the batch.
-
-    Returns:
-        (returns ``[copies]``, start observations ``[copies, obs_dim]``).
-    """
-    import envs  # noqa: F401  (registers Kiln's tasks)
-
-    options = dict(kwargs)
-    if max_episode_steps is not None:
-        options["max_episode_steps"] = int(max_episode_steps)
-    vector_env = gym.make_vec(env_id, num_envs=copies, vectorization_mode="vector_entry_point", **options)
-    try:
-        observations, _ = vector_env.reset(seed=seed)
-        starts = np.asarray(observations, dtype=np.float64).copy()
-        returns = np.zeros(copies)
-        alive = np.ones(copies, dtype=bool)
-        weight = 1.0
-        while alive.any():
-            actions, log_prob = sample(observations)
-            observations, rewards, terminated, truncated, _ = vector_env.step(actions)
-            returns += np.where(alive, weight * (np.asarray(rewards, dtype=np.float64) - alpha * log_prob), 0.0)
-            alive &= ~(np.asarray(terminated) | np.asarray(truncated))
-            weight *= discount
-    finally:
-        vector_env.close()
-    return returns, starts
-
-
 def actor_soft_returns(
     policy: SavedPolicy,
     env_id: str,
@@ -131,6 +80,6 @@ def actor_soft_returns(
     copies: int,
     seed: int,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`soft_returns` of a saved policy's stochastic actions; its noise is seeded by ``seed``."""
+    """:func:`agents.rollout.soft_returns` of a saved policy's stochastic actions, noise seeded by ``seed``."""
     sampler = actor_sampler(policy, torch.Generator().manual_seed(seed))
     return soft_returns(sampler, env_id, kwargs, max_episode_steps, alpha, discount, copies, seed)
