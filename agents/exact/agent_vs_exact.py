@@ -22,9 +22,10 @@ import numpy as np
 import torch
 
 from agents.exact.check_row import CheckRow, relative_row
-from agents.exact.policy_measures import actor_mean_action, actor_soft_returns
+from agents.exact.policy_measures import actor_mean_action, actor_sampler
 from agents.policy_io import SavedPolicy, load_policy
 from agents.presets import compose_config
+from agents.rollout import soft_returns
 from agents.trainer import POLICY, train
 from envs.bandit_solution import (
     bandit_alpha_for_entropy,
@@ -223,7 +224,8 @@ def lqr_check(run_dir: Path, seed: int = 0, rollouts: int = 4000) -> AgentCheck:
     # Rollouts run for the task's registered limit (200 steps, γ^200 = 7e-10 at γ = 0.9), not the
     # preset's short training episodes: the exact answer is the infinite-horizon value.
     env_id, kwargs = config["env"]["id"], config["env"]["kwargs"]
-    returns, starts = actor_soft_returns(policy, env_id, kwargs, None, LQR_ALPHA, discount, rollouts, seed + 1)
+    sampler = actor_sampler(policy, torch.Generator().manual_seed(seed + 1))
+    returns, starts = soft_returns(sampler, env_id, kwargs, None, LQR_ALPHA, discount, rollouts, seed + 1)
     excess = returns - exact.value(starts)
     start_cov = model.start_std**2 * np.eye(model.state_size)
     expected_return = exact.mean_value(start_cov)

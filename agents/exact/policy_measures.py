@@ -1,7 +1,7 @@
-"""Measure a saved squashed-Gaussian policy in the task's own units: mean actions and soft returns.
+"""Measure a saved squashed-Gaussian policy in the task's own units: mean actions and log-densities.
 
-The mean action is computed by quadrature (no sampling noise); soft returns come from rollouts of the
-policy's stochastic actions through :func:`agents.rollout.soft_returns`, the one rollout path.
+The mean action is computed by quadrature (no sampling noise); the sampler feeds the policy's
+stochastic actions with their task-unit log-densities to :func:`agents.rollout.soft_returns`.
 
 The agent works in (−1, 1); a task's Box may be wider. Its log-density in task units is
 log π_env(a) = log π_agent(a′) − Σᵢ log(half-rangeᵢ) for a = centre + half-range · a′ (change of
@@ -10,14 +10,11 @@ variables for an affine map), which is what the exact answers of ``envs.lqr_solu
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from typing import Any
-
 import numpy as np
 import torch
 
 from agents.policy_io import SavedPolicy
-from agents.rollout import Sampler, soft_returns
+from agents.rollout import Sampler
 
 # Probabilists' Gauss–Hermite nodes for E over a Gaussian: exact for polynomials of degree < 64, so
 # for the smooth tanh of a narrow Gaussian the rule's error is far below float32 rounding.
@@ -68,18 +65,3 @@ def actor_sampler(policy: SavedPolicy, generator: torch.Generator) -> Sampler:
         return env_action, log_prob.double().sum(dim=-1).numpy() - log_half
 
     return sample
-
-
-def actor_soft_returns(
-    policy: SavedPolicy,
-    env_id: str,
-    kwargs: Mapping[str, Any],
-    max_episode_steps: int | None,
-    alpha: float,
-    discount: float,
-    copies: int,
-    seed: int,
-) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`agents.rollout.soft_returns` of a saved policy's stochastic actions, noise seeded by ``seed``."""
-    sampler = actor_sampler(policy, torch.Generator().manual_seed(seed))
-    return soft_returns(sampler, env_id, kwargs, max_episode_steps, alpha, discount, copies, seed)
