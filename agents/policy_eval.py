@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from dataclasses import asdict
 from pathlib import Path
 from typing import Any
 
@@ -10,8 +9,8 @@ import gymnasium as gym
 import torch
 
 from agents.errors import KilnError
-from agents.evaluation import run_episodes, summarise
 from agents.policy_io import SavedPolicy
+from agents.rollout import run_episodes, summarise
 from envs.make import make_env
 from envs.task_spec import TaskSpec
 
@@ -33,7 +32,8 @@ def evaluate_policy(
         video_dir: Record every episode as MP4 into this folder (Gymnasium's video recorder).
 
     Returns:
-        ``{"episodes": [...per-episode...], "summary": {...}}``.
+        ``{"episode_list": [...], "summary": {...}}``: one record per episode (``seed``, ``return``,
+        ``length``, ``terminated``) and the summary, whose ``episodes`` is their count.
 
     Raises:
         TaskError: If the task cannot be created.
@@ -65,7 +65,7 @@ def evaluate_policy(
         raise
     finally:
         env.close()
-    return {"episodes": [asdict(e) for e in result], "summary": summarise(result)}
+    return {"episode_list": [e.record() for e in result], "summary": summarise(result)}
 
 
 def _with_video(env: gym.Env, folder: Path) -> gym.Env:

@@ -19,12 +19,11 @@ from omegaconf import OmegaConf
 from agents.action_scale import ActionScale
 from agents.collector import Collector
 from agents.config import RunConfig, parse_run_config
-from agents.diagnostics import q_minus_return
-from agents.evaluation import run_episodes, summarise
 from agents.log_window import LogWindow
 from agents.policy_io import build_spec, save_policy
 from agents.progress import Progress
 from agents.replay import ReplayBuffer, check_replay_fits
+from agents.rollout import q_minus_return, run_episodes, summarise
 from agents.run_folder import FinalNumbers, RunFolder, RunResult
 from agents.run_log import RunLog
 from agents.sac import SoftActorCritic

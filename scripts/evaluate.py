@@ -68,7 +68,7 @@ def run(raw: dict[str, Any]) -> Path:
         "env_id": spec["env"]["id"],
         "kiln_version": spec.get("kiln_version"),
         "mode": mode,
-        "seeds": [e["seed"] for e in result["episodes"]],
+        "seeds": [e["seed"] for e in result["episode_list"]],
         **result,
     }
     try:

@@ -36,7 +36,7 @@ def main(argv: list[str] | None = None) -> int:
     # The checks compare Kiln's own task presets with their exact answers; a user preset of the same
     # name would change the task under test, so user preset folders are not searched here.
     os.environ.pop(PRESETS_ENV, None)
-    from agents.verify import format_table, report_json, run_verify  # torch loads only past the checks
+    from agents.exact.verify import format_table, report_json, run_verify  # torch loads only past the checks
 
     report = run_verify(args.quick, args.seed, say=lambda line: print(line, flush=True))
     print(format_table(report), flush=True)

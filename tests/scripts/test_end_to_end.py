@@ -67,10 +67,12 @@ def test_evaluate_the_saved_policy(trained):
     assert f"wrote    {out}" in proc.stdout
     record = json.loads(out.read_text())
     assert record["seeds"] == [5, 6, 7]
-    returns = [e["ret"] for e in record["episodes"]]
+    returns = [e["return"] for e in record["episode_list"]]
     assert record["summary"]["return_mean"] == pytest.approx(sum(returns) / 3)
+    # `episodes` counts, as in result.json; the per-episode records are `episode_list`.
+    assert record["summary"]["episodes"] == len(record["episode_list"]) == 3 and "episodes" not in record
     # Pendulum-v1 truncates at its registered 200 steps and never terminates (Gymnasium registry).
-    assert all(e["length"] == 200 and not e["terminated"] for e in record["episodes"])
+    assert all(e["length"] == 200 and not e["terminated"] for e in record["episode_list"])
 
 
 def test_evaluation_is_reproducible_and_stochastic_mode_differs(trained):
@@ -85,8 +87,8 @@ def test_evaluation_is_reproducible_and_stochastic_mode_differs(trained):
     det, sto = (json.loads(p.read_text()) for p in paths)
     again = run_script("evaluate", f"policy={run_dir}/policy", "episodes=2", f"out={work}/again.json", cwd=work)
     assert again.returncode == 0
-    assert json.loads((work / "again.json").read_text())["episodes"] == det["episodes"]
-    assert sto["mode"] == "stochastic" and sto["episodes"] != det["episodes"]
+    assert json.loads((work / "again.json").read_text())["episode_list"] == det["episode_list"]
+    assert sto["mode"] == "stochastic" and sto["episode_list"] != det["episode_list"]
 
 
 def test_evaluate_records_video(trained):

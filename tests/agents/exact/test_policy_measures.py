@@ -1,4 +1,4 @@
-"""The measurements behind the agent-vs-exact checks, against closed forms, torch.distributions and SciPy."""
+"""The measurements behind the agent-vs-exact checks, against torch.distributions and SciPy quadrature."""
 
 import math
 
@@ -11,10 +11,8 @@ from torch.distributions import AffineTransform, Normal, TanhTransform, Transfor
 
 from agents.action_scale import ActionScale
 from agents.actor import SquashedGaussianActor
+from agents.exact.policy_measures import actor_mean_action, actor_sampler
 from agents.policy_io import SavedPolicy
-from agents.soft_rollouts import actor_mean_action, actor_sampler, soft_returns
-from envs.lqr import LinearQuadraticModel
-from envs.lqr_solution import soft_lq_solution
 
 BOUND = 10.0  # FiringHold's default action bound
 
@@ -22,28 +20,6 @@ BOUND = 10.0  # FiringHold's default action bound
 def _policy(seed: int = 0) -> SavedPolicy:
     actor = SquashedGaussianActor(2, 1, (16, 16), "relu", (-20.0, 2.0), torch.Generator().manual_seed(seed))
     return SavedPolicy(actor=actor, scale=ActionScale(np.array([-BOUND]), np.array([BOUND])), spec={})
-
-
-def test_soft_returns_of_the_exact_optimum_match_the_closed_form():
-    model, alpha, discount = LinearQuadraticModel(), 1.0, 0.9
-    exact = soft_lq_solution(model, alpha, discount)
-    rng = np.random.default_rng(5)
-    factor = math.sqrt(float(exact.covariance[0, 0]))
-
-    def optimal(observations):
-        mean = exact.mean_action(observations)
-        actions = mean + factor * rng.standard_normal(mean.shape)
-        # scipy.stats.norm gives the Gaussian log-density in env units, independently of Kiln.
-        return actions, scipy.stats.norm.logpdf(actions[:, 0], mean[:, 0], factor)
-
-    returns, starts = soft_returns(optimal, "kiln/FiringHold-v0", {}, None, alpha, discount, 2000, seed=3)
-    excess = returns - exact.value(starts)
-    stderr = excess.std(ddof=1) / math.sqrt(len(excess))
-    # Source: envs/lqr_solution.py (closed form via scipy.linalg.solve_discrete_are): for the optimal
-    # policy E[G | x₀] = V*(x₀). The 200-step limit leaves γ^200 = 7e-10 of the tail; 4 standard errors.
-    assert abs(excess.mean()) < 4 * stderr
-    assert stderr < 0.02  # the control variate V*(x₀) keeps the check sharp
-    np.testing.assert_allclose(starts.std(axis=0), 1.0, atol=0.05)  # x₀ ~ N(0, I): start_std = 1
 
 
 def test_sampler_log_density_is_the_task_unit_density():

@@ -1,4 +1,8 @@
-"""Checks of the exact soft dynamic-programming solver against outside results."""
+"""Checks of the exact soft dynamic-programming solver against outside results.
+
+The comparisons with Sutton & Barto's printed v* and the soft-vs-hard bound are rows of the verify
+table and are tested in test_solver_checks.py.
+"""
 
 from __future__ import annotations
 
@@ -8,39 +12,9 @@ import numpy as np
 import pytest
 from scipy.special import logsumexp, softmax
 
-from agents.book_gridworld import BOOK_DISCOUNT, BOOK_V_STAR, book_gridworld
-from agents.soft_dp import (
-    log_sum_exp,
-    soft_backward_pass,
-    soft_value_iteration,
-)
+from agents.exact.soft_dp import log_sum_exp, soft_backward_pass, soft_value_iteration
 from envs.glaze_trial import DECIDE, EXPERIMENTAL, STANDARD, glaze_trial_mdp
-
-
-def test_hard_limit_reproduces_book_gridworld_v_star() -> None:
-    transitions, reward = book_gridworld()
-    hard = soft_value_iteration(transitions, reward, alpha=0.0, discount=BOOK_DISCOUNT)
-    assert hard.converged
-    # Source: Sutton & Barto 2nd ed., Figure 3.5 (printed to 1 decimal, so compare rounded values).
-    np.testing.assert_array_equal(np.round(hard.v.reshape(5, 5), 1), BOOK_V_STAR)
-    # A tiny temperature is ordinary value iteration up to alpha * log|A| / (1 - gamma) = 1.4e-8.
-    tiny = soft_value_iteration(transitions, reward, alpha=1e-9, discount=BOOK_DISCOUNT)
-    np.testing.assert_array_equal(np.round(tiny.v.reshape(5, 5), 1), BOOK_V_STAR)
-
-
-@pytest.mark.parametrize("alpha", [0.01, 0.1, 1.0])
-def test_soft_value_lies_within_entropy_bound_of_v_star(alpha: float) -> None:
-    transitions, reward = book_gridworld()
-    hard = soft_value_iteration(transitions, reward, alpha=0.0, discount=BOOK_DISCOUNT, tolerance=1e-12)
-    soft = soft_value_iteration(transitions, reward, alpha=alpha, discount=BOOK_DISCOUNT, tolerance=1e-12)
-    gap = soft.v - hard.v
-    # Source: DESIGN.md, from max q <= alpha log sum exp(q / alpha) <= max q + alpha log|A| carried
-    # through the gamma-contraction: 0 <= V_soft - v* <= alpha log|A| / (1 - gamma). Slack 1e-9
-    # covers the 1e-12 solver tolerances.
-    assert np.all(gap >= -1e-9)
-    assert np.all(gap <= alpha * math.log(4) / (1 - BOOK_DISCOUNT) + 1e-9)
-    # The bound is not vacuous: some state sits strictly above v*.
-    assert gap.max() > 0.1 * alpha
+from envs.gridworld import BOOK_DISCOUNT, book_gridworld
 
 
 def test_log_sum_exp_matches_scipy() -> None:

@@ -2,14 +2,14 @@
 
 Each test trains one run with agents.trainer.train from a config composed from the presets
 (configs/env/damper_trim.yaml, configs/env/firing_hold.yaml) and measures it with
-agents.agent_vs_exact, the same functions scripts/verify.py prints, so test and command cannot drift.
+agents.exact.agent_vs_exact, the same rows scripts/verify.py prints, so test and command cannot drift.
 One torch thread per run. Tolerances are issue 3's (the project's requirement, no outside source);
 the measured errors quoted below are seeds 0–2 on the 2-core development machine.
 """
 
 import pytest
 
-from agents.agent_vs_exact import bandit_fixed_alpha_check, bandit_tuned_alpha_check, lqr_check
+from agents.exact.agent_vs_exact import bandit_fixed_alpha_check, bandit_tuned_alpha_check, lqr_check
 
 
 @pytest.mark.slow

@@ -1,7 +1,8 @@
 """The 5×5 gridworld of Sutton & Barto, *Reinforcement Learning: An Introduction*, 2nd ed., Example 3.8.
 
-A finite MDP with a printed optimal value table (Figure 3.5), used to check the exact soft solver
-(:mod:`agents.soft_dp`) in its α → 0 limit, by the tests and by ``scripts/verify.py``.
+A finite MDP with a printed optimal value table (Figure 3.5). Kiln's exact soft solver
+(``agents.exact.soft_dp``) is checked against it in its α → 0 limit; the data lives here, beside the
+other tabular task (``envs.glaze_trial``), because tasks never import the learner.
 """
 
 from __future__ import annotations
@@ -9,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 # Figure 3.5 of the book: the optimal state values v* (γ = 0.9), rows top to bottom, printed to one
-# decimal, as quoted in DESIGN.md.
+# decimal.
 BOOK_V_STAR = np.array(
     [
         [22.0, 24.4, 22.0, 19.4, 17.5],
@@ -20,7 +21,7 @@ BOOK_V_STAR = np.array(
     ]
 )
 BOOK_DISCOUNT = 0.9
-BOOK_SOURCE = "Sutton & Barto, RL: An Introduction, 2nd ed., Example 3.8, Figure 3.5"
+BOOK_SOURCE = "Sutton & Barto 2018, Ex. 3.8 / Fig. 3.5"
 
 
 def book_gridworld() -> tuple[np.ndarray, np.ndarray]:
