@@ -15,7 +15,7 @@ from agents.replay import ReplayBuffer
 class EpisodeEnd:
     """Undiscounted return and length of an episode that just ended."""
 
-    ret: float
+    return_: float  # "return" is a Python keyword
     length: int
 
 

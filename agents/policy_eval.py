@@ -2,32 +2,76 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import gymnasium as gym
 import torch
 
+from agents import checks
 from agents.errors import KilnError
 from agents.policy_io import SavedPolicy
 from agents.rollout import run_episodes, summarise
+from agents.streams import LARGEST_EPISODES, LARGEST_SEED, RunStreams
 from envs.make import make_env
 from envs.task_spec import TaskSpec
 
 
+# Without a run's own record (a policy saved elsewhere), evaluation falls back to these.
+DEFAULT_EPISODES = 10
+DEFAULT_SEED = 0
+
+
+@dataclass(frozen=True)
+class EvaluationPlan:
+    """Which episodes to run: their reset seeds, and the seed of the policy's sampling generator."""
+
+    reset_seeds: list[int]
+    sampling_seed: int
+    source: str  # says where the seeds come from, for the printed summary
+
+
+def plan_evaluation(policy: SavedPolicy, episodes: int | None, seed: int | None) -> EvaluationPlan:
+    """The episodes an evaluation runs.
+
+    With no ``seed``, a policy saved by a training run is evaluated on that run's own evaluation
+    episodes (the streams of agents.streams: same reset seeds, same sampling generator), so the
+    figure training printed is reproduced exactly. With a ``seed``, reset seeds are ``seed, seed+1, …``
+    and the sampling generator is seeded with ``seed``.
+
+    Raises:
+        ConfigError: If ``episodes`` or ``seed`` is out of range.
+    """
+    if episodes is not None:
+        checks.integer(episodes, "episodes", 1, LARGEST_EPISODES)
+    config = policy.spec.get("config") or {}
+    run_seed = config.get("seed") if isinstance(config, dict) else None
+    run_episodes_count = (config.get("evaluate") or {}).get("episodes") if isinstance(config, dict) else None
+    if seed is None and isinstance(run_seed, int) and isinstance(run_episodes_count, int):
+        streams = RunStreams(run_seed)
+        count = episodes if episodes is not None else run_episodes_count
+        return EvaluationPlan(
+            streams.evaluation_reset_seeds(count),
+            streams.seed_of_evaluation_generator,
+            f"the training run's evaluation episodes (run seed {run_seed})",
+        )
+    first = DEFAULT_SEED if seed is None else checks.integer(seed, "seed", 0, LARGEST_SEED)
+    count = episodes if episodes is not None else DEFAULT_EPISODES
+    return EvaluationPlan([first + i for i in range(count)], first, f"seed={first}")
+
+
 def evaluate_policy(
     policy: SavedPolicy,
-    episodes: int,
-    seed: int,
+    plan: EvaluationPlan,
     deterministic: bool = True,
     video_dir: Path | None = None,
 ) -> dict[str, Any]:
-    """Run ``episodes`` seeded episodes (reset seeds ``seed, seed+1, …``) and summarise them.
+    """Run the planned seeded episodes and summarise them.
 
     Args:
         policy: A loaded policy.
-        episodes: Number of episodes.
-        seed: First reset seed; also seeds the policy's sampling when ``deterministic`` is false.
+        plan: Reset seeds and the sampling seed (see :func:`plan_evaluation`).
         deterministic: Act with ``tanh(mean)``; otherwise sample from the policy.
         video_dir: Record every episode as MP4 into this folder (Gymnasium's video recorder).
 
@@ -49,11 +93,9 @@ def evaluate_policy(
         )
     if video_dir is not None:
         env = _with_video(env, Path(video_dir))
-    generator = torch.Generator().manual_seed(seed)
+    generator = torch.Generator().manual_seed(plan.sampling_seed)
     try:
-        result = run_episodes(
-            env, lambda o: policy.act(o, deterministic, generator), [seed + i for i in range(episodes)]
-        )
+        result = run_episodes(env, lambda o: policy.act(o, deterministic, generator), plan.reset_seeds)
     except gym.error.DependencyNotInstalled as err:
         raise KilnError(f"video needs a renderer that is not installed ({err}): pip install 'kiln-sac[video]'") from None
     except Exception as err:

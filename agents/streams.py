@@ -54,9 +54,14 @@ class RunStreams:
         """Reset seed of the training env's first episode."""
         return self.seed
 
+    @property
+    def seed_of_evaluation_generator(self) -> int:
+        """The seed :meth:`evaluation_generator` starts from (the evaluate command reuses it)."""
+        return self.seed + _STRIDE
+
     def evaluation_generator(self) -> torch.Generator:
         """Policy samples of one evaluation (a fresh generator per evaluation, the same each time)."""
-        return torch.Generator().manual_seed(self.seed + _STRIDE)
+        return torch.Generator().manual_seed(self.seed_of_evaluation_generator)
 
     def evaluation_reset_seeds(self, episodes: int) -> list[int]:
         """Reset seeds of the evaluation episodes: the same start states at every evaluation."""

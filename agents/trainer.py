@@ -155,8 +155,8 @@ def train(raw_config: Mapping[str, Any], run_dir: Path) -> RunResult:
             ended = collector.step(action)
             window.add_step()
             if ended is not None:
-                log.scalars({"return/train": ended.ret, "length/train": ended.length}, step)
-                progress.set_train(step, ended.ret)
+                log.scalars({"return/train": ended.return_, "length/train": ended.length}, step)
+                progress.set_train(step, ended.return_)
 
             if step > r.warmup_steps and len(replay) >= cfg.agent.batch_size:
                 credit += r.updates_per_env_step

@@ -8,8 +8,6 @@ Caution: a policy trained in simulation is not safe to run on physical equipment
 
 from __future__ import annotations
 
-import json
-import os
 import sys
 from pathlib import Path
 from typing import Any
@@ -17,9 +15,11 @@ from typing import Any
 import hydra
 from omegaconf import DictConfig, OmegaConf
 
+from agents import checks
 from agents.errors import ConfigError, KilnError
-from agents.policy_eval import evaluate_policy
+from agents.policy_eval import EvaluationPlan, evaluate_policy, plan_evaluation
 from agents.policy_io import load_policy, resolve_policy_folder
+from agents.run_folder import POLICY, RunFolder, write_json_atomic
 from agents.presets import CONFIG_DIR
 from kiln_cli._cli import check_overrides, guarded, plural
 
@@ -28,18 +28,16 @@ def check_evaluate_config(raw: dict[str, Any]) -> None:
     """Check values and that the policy folder loads, before anything runs."""
     if raw.get("policy") in (None, "???", ""):
         raise ConfigError("no policy given: kiln evaluate policy=<run folder or policy folder>")
-    for key in ("episodes",):
-        if isinstance(raw[key], bool) or not isinstance(raw[key], int) or raw[key] < 1:
-            raise ConfigError(f"{key} must be a positive integer, got {raw[key]!r}")
-    if isinstance(raw["seed"], bool) or not isinstance(raw["seed"], int) or raw["seed"] < 0:
-        raise ConfigError(f"seed must be a non-negative integer, got {raw['seed']!r}")
-    load_policy(Path(raw["policy"]))
+    checks.boolean(raw["deterministic"], "deterministic")
+    checks.boolean(raw["video"], "video")
+    plan_evaluation(load_policy(Path(raw["policy"])), raw["episodes"], raw["seed"])
 
 
-def episodes_line(mode: str, episodes: int, seed: int) -> str:
-    """``deterministic, 3 episodes, reset seeds 5..7`` (one episode: ``reset seed 5``)."""
-    seeds = f"reset seed {seed}" if episodes == 1 else f"reset seeds {seed}..{seed + episodes - 1}"
-    return f"{mode}, {plural(episodes, 'episode')}, {seeds}"
+def episodes_line(mode: str, plan: EvaluationPlan) -> str:
+    """``deterministic, 3 episodes, reset seeds 5..7 (seed=5)`` (one episode: ``reset seed 5``)."""
+    seeds = plan.reset_seeds
+    shown = f"reset seed {seeds[0]}" if len(seeds) == 1 else f"reset seeds {seeds[0]}..{seeds[-1]}"
+    return f"{mode}, {plural(len(seeds), 'episode')}, {shown} ({plan.source})"
 
 
 def table(summary: dict[str, float]) -> str:
@@ -57,30 +55,29 @@ def run(raw: dict[str, Any]) -> Path:
     folder = resolve_policy_folder(Path(raw["policy"]))
     policy = load_policy(folder)
     mode = "deterministic" if raw["deterministic"] else "stochastic"
-    run_folder = folder.parent if folder.name == "policy" else folder
-    stem = f"{mode}_seed{raw['seed']}_{raw['episodes']}ep"
-    out = Path(raw["out"]) if raw.get("out") else run_folder / "evaluations" / f"{stem}.json"
+    plan = plan_evaluation(policy, raw["episodes"], raw["seed"])
+    run_folder = RunFolder(folder.parent if folder.name == POLICY else folder)
+    out = Path(raw["out"]) if raw.get("out") else run_folder.evaluation_path(mode, plan.reset_seeds)
     video_dir = out.with_suffix("") if raw["video"] else None
-    result = evaluate_policy(policy, raw["episodes"], raw["seed"], raw["deterministic"], video_dir)
+    result = evaluate_policy(policy, plan, raw["deterministic"], video_dir)
     spec = policy.spec
     record = {
         "policy": str(folder.resolve()),
         "env_id": spec["env"]["id"],
         "kiln_version": spec.get("kiln_version"),
         "mode": mode,
-        "seeds": [e["seed"] for e in result["episode_list"]],
+        "seeds": plan.reset_seeds,
+        "sampling_seed": plan.sampling_seed,
         **result,
     }
     try:
         out.parent.mkdir(parents=True, exist_ok=True)
-        tmp = out.with_name(f".{out.name}.tmp")
-        tmp.write_text(json.dumps(record, indent=2))
-        os.replace(tmp, out)
+        write_json_atomic(out, record)
     except OSError as err:
         raise KilnError(f"cannot write {out} ({err.strerror}): choose another out=<path>") from None
     trained = spec.get("config", {}).get("steps")
     print(f"policy   {folder}  ({spec['env']['id']}, {trained} training steps, Kiln {spec.get('kiln_version')})")
-    print(f"mode     {episodes_line(mode, raw['episodes'], raw['seed'])}")
+    print(f"mode     {episodes_line(mode, plan)}")
     print(table(result["summary"]))
     print(f"wrote    {out}" + (f"\nvideos   {video_dir}" if video_dir else ""))
     return out

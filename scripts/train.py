@@ -39,7 +39,7 @@ def report(run_dir: Path, result: RunResult) -> None:
         f"(min {ev['return_min']:.1f}, max {ev['return_max']:.1f})"
     )
     mode = "" if result.eval_deterministic else " deterministic=false"
-    print(f"reproduce    python scripts/evaluate.py policy={run_dir}{mode}   (same seeds, same episodes)")
+    print(f"reproduce    kiln evaluate policy={run_dir}{mode}   (same reset seeds, same sampling)")
     ups = result.updates_per_s
     print(f"time         {result.wall_time_s:.0f} s wall, {result.updates} updates" + (f" at {ups:.0f}/s" if ups else ""))
 

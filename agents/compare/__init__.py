@@ -9,10 +9,20 @@ Typical use::
     write_report(comparison, sweep / "report", runs_root=sweep)
 """
 
-from agents.compare.bootstrap import Interval, bootstrap_distribution, iqm_interval, percentile_interval
+from agents.compare.bootstrap import (
+    Interval,
+    bootstrap_distribution,
+    iqm_interval,
+    percentile_interval,
+)
 from agents.compare.errors import CompareInputError
 from agents.compare.events import ScalarSeries, read_scalars
-from agents.compare.report import check_out_dir, default_out_dir, terminal_summary, write_report
+from agents.compare.report import (
+    check_out_dir,
+    default_out_dir,
+    terminal_summary,
+    write_report,
+)
 from agents.compare.runs import Run, find_run_dirs, load_run, load_runs
 from agents.compare.stats import iqm, performance_profile, probability_of_improvement
 from agents.compare.summary import Comparison, summarise

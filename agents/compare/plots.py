@@ -19,7 +19,7 @@ from matplotlib.ticker import EngFormatter, LogFormatter  # noqa: E402
 
 from agents.compare.summary import ALPHA_TAG, ENTROPY_TAG, Comparison  # noqa: E402
 from agents.compare.tables import NO_CI  # noqa: E402
-from agents.compare.writing import write_atomic  # noqa: E402
+from agents.run_folder import write_bytes_atomic  # noqa: E402
 
 _STYLE = {
     "figure.dpi": 120,
@@ -262,4 +262,4 @@ def save_png(figure: Figure, path: Path) -> None:
     buffer = io.BytesIO()
     with _style():
         figure.savefig(buffer, format="png")
-    write_atomic(path, buffer.getvalue())
+    write_bytes_atomic(path, buffer.getvalue())

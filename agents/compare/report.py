@@ -11,7 +11,8 @@ from agents.compare.errors import CompareInputError
 from agents.compare.grouping import TARGET_ENTROPY_KEY
 from agents.compare.summary import Comparison, GroupSummary
 from agents.compare.tables import NO_CI, markdown_table, text_table
-from agents.compare.writing import write_csv, write_json, write_text
+from agents.compare.writing import write_csv, write_json
+from agents.run_folder import write_text_atomic
 
 REPORT_FOLDER = "report"
 
@@ -267,7 +268,9 @@ def write_report(comparison: Comparison, out_dir: Path, runs_root: Path | None =
     Raises:
         CompareInputError: If ``out_dir`` exists as a file or cannot be written.
     """
-    from agents.compare import plots  # matplotlib is slow to import; only a written report needs it
+    from agents.compare import (
+        plots,  # matplotlib is slow to import; only a written report needs it
+    )
 
     check_out_dir(out_dir)
     try:
@@ -307,7 +310,7 @@ def write_report(comparison: Comparison, out_dir: Path, runs_root: Path | None =
         plots.save_png(plots.performance_profiles(comparison), target(PROFILE_PNG))
         plots.save_png(plots.final_scores(comparison), target(FINAL_PNG))
         # The markdown goes last so that it never points at figures that were not written.
-        write_text(target(MARKDOWN), _markdown(comparison, runs_root))
+        write_text_atomic(target(MARKDOWN), _markdown(comparison, runs_root))
     except OSError as error:
         raise CompareInputError(
             f"cannot write the report to {out_dir} ({error.strerror or type(error).__name__})",

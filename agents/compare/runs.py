@@ -13,9 +13,7 @@ from omegaconf import OmegaConf
 
 from agents.compare.errors import CompareInputError
 from agents.compare.events import ScalarSeries, has_event_files, read_scalars
-
-CONFIG_FILE = "config.yaml"
-RESULT_FILE = "result.json"
+from agents.run_folder import CONFIG, RESULT
 
 # A sweep nests runs one level (sweep/<job>/) or two (multirun/<date>/<time>/<job>/); a little
 # more costs nothing and stops a mistaken path like ~ from walking the whole disk.
@@ -83,9 +81,9 @@ def is_run_dir(path: Path) -> bool:
     Returns:
         True for a run directory.
     """
-    if not (path / CONFIG_FILE).is_file():
+    if not (path / CONFIG).is_file():
         return False
-    return has_event_files(path) or (path / RESULT_FILE).is_file()
+    return has_event_files(path) or (path / RESULT).is_file()
 
 
 def _walk(root: Path, depth: int, found: list[Path], half_runs: list[Path]) -> None:
@@ -93,7 +91,7 @@ def _walk(root: Path, depth: int, found: list[Path], half_runs: list[Path]) -> N
     if is_run_dir(root):
         found.append(root)
         return
-    if (root / CONFIG_FILE).is_file():
+    if (root / CONFIG).is_file():
         half_runs.append(root)
     if depth >= _MAX_DEPTH:
         return
@@ -158,8 +156,8 @@ def _result_series(result: dict[str, Any]) -> dict[str, ScalarSeries]:
         return {}
     pairs = {
         "return/eval": final.get("return_eval"),
-        "actor/entropy": final.get("entropy"),
-        "temperature/alpha": final.get("alpha"),
+        "actor/entropy_nats": final.get("entropy"),
+        "temperature/value": final.get("alpha"),
         "temperature/target_entropy": result.get("target_entropy"),
     }
     step = np.array([int(steps)], dtype=np.int64)
@@ -194,7 +192,7 @@ def load_run(path: Path) -> Run:
     Raises:
         CompareInputError: If config.yaml, result.json or the event files cannot be read.
     """
-    config_path = path / CONFIG_FILE
+    config_path = path / CONFIG
     try:
         config = OmegaConf.to_container(OmegaConf.load(config_path), resolve=True)
     except Exception as error:  # OmegaConf raises several unrelated types for a bad file
@@ -210,7 +208,7 @@ def load_run(path: Path) -> Run:
         )
 
     result = None
-    result_path = path / RESULT_FILE
+    result_path = path / RESULT
     if result_path.is_file():
         try:
             result = json.loads(result_path.read_text(encoding="utf-8"))

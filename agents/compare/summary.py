@@ -14,7 +14,12 @@ from pathlib import Path
 
 import numpy as np
 
-from agents.compare.bootstrap import Interval, bootstrap_distribution, iqm_interval, percentile_interval
+from agents.compare.bootstrap import (
+    Interval,
+    bootstrap_distribution,
+    iqm_interval,
+    percentile_interval,
+)
 from agents.compare.grouping import (
     TARGET_ENTROPY_KEY,
     Group,
@@ -27,8 +32,8 @@ from agents.compare.grouping import (
 from agents.compare.runs import Run
 from agents.compare.stats import iqm, performance_profile, probability_of_improvement
 
-ENTROPY_TAG = "actor/entropy"
-ALPHA_TAG = "temperature/alpha"
+ENTROPY_TAG = "actor/entropy_nats"
+ALPHA_TAG = "temperature/value"
 
 # Curves are drawn, not read point by point: 200 points show the shape and keep the bootstrap of a
 # long run (thousands of logged steps × runs × resamples) small.

@@ -1,4 +1,4 @@
-"""Writing report files so that a reader never sees half a file and nothing else is touched."""
+"""Report files as CSV and JSON, written atomically so that a reader never sees half a file."""
 
 from __future__ import annotations
 
@@ -6,46 +6,12 @@ import csv
 import io
 import json
 import math
-import os
-import secrets
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
-
-def write_atomic(path: Path, data: bytes) -> None:
-    """Writes ``data`` to a temporary file beside ``path`` and renames it over ``path``.
-
-    The rename is atomic on one filesystem, so an interrupted report leaves the previous file
-    intact instead of a truncated one.
-
-    Args:
-        path: Destination file; its folder must exist.
-        data: The bytes to write.
-
-    Raises:
-        OSError: If the folder is not writable.
-    """
-    # Not tempfile.mkstemp: its files are private (0600); this one gets the user's usual permissions.
-    temporary = path.with_name(f".{path.name}.{os.getpid()}.{secrets.token_hex(4)}.partial")
-    try:
-        with open(temporary, "xb") as file:
-            file.write(data)
-        os.replace(temporary, path)
-    except BaseException:
-        # Leave no stray partial file behind on failure.
-        temporary.unlink(missing_ok=True)
-        raise
-
-
-def write_text(path: Path, text: str) -> None:
-    """Writes UTF-8 text atomically (see :func:`write_atomic`).
-
-    Args:
-        path: Destination file.
-        text: Content.
-    """
-    write_atomic(path, text.encode("utf-8"))
+# The atomic writer is the run folder's (one owner for every file Kiln writes).
+from agents.run_folder import write_text_atomic
 
 
 def _cell(value: Any) -> str:
@@ -70,7 +36,7 @@ def write_csv(path: Path, header: Sequence[str], rows: Iterable[Sequence[Any]]) 
     writer.writerow(header)
     for row in rows:
         writer.writerow([_cell(value) for value in row])
-    write_text(path, buffer.getvalue())
+    write_text_atomic(path, buffer.getvalue())
 
 
 def _plain(value: Any) -> Any:
@@ -95,4 +61,4 @@ def write_json(path: Path, data: Any) -> None:
         path: Destination file.
         data: Nested dicts/lists of numbers, text, numpy arrays and paths.
     """
-    write_text(path, json.dumps(_plain(data), indent=2, allow_nan=False) + "\n")
+    write_text_atomic(path, json.dumps(_plain(data), indent=2, allow_nan=False) + "\n")

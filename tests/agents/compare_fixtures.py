@@ -57,13 +57,13 @@ def training_scalars(final_return: float, entropy: float, alpha: float, target: 
     """Invented, smoothly improving scalars ending exactly at the given final values.
 
     Returns:
-        Tag → (step, value) pairs for return/eval, actor/entropy, temperature/alpha and
+        Tag → (step, value) pairs for return/eval, actor/entropy_nats, temperature/value and
         temperature/target_entropy.
     """
     last = steps[-1]
     return {
         "return/eval": [(s, final_return - 500.0 * (1 - s / last)) for s in steps],
-        "actor/entropy": [(s, entropy + 1.0 * (1 - s / last)) for s in steps],
-        "temperature/alpha": [(s, alpha * (1.0 + 9.0 * (1 - s / last))) for s in steps],
+        "actor/entropy_nats": [(s, entropy + 1.0 * (1 - s / last)) for s in steps],
+        "temperature/value": [(s, alpha * (1.0 + 9.0 * (1 - s / last))) for s in steps],
         "temperature/target_entropy": [(s, target) for s in steps],
     }

@@ -14,21 +14,21 @@ def test_reads_back_every_value_written(tmp_path: Path) -> None:
     for step, value in returns.items():
         writer.add_scalar("return/eval", value, step)
     for step in range(0, 3001, 10):  # more points than TensorBoard's default reservoir keeps (1000)
-        writer.add_scalar("actor/entropy", step / 1000.0, step)
-    writer.add_scalar("temperature/alpha", 0.1, 3000)
+        writer.add_scalar("actor/entropy_nats", step / 1000.0, step)
+    writer.add_scalar("temperature/value", 0.1, 3000)
     writer.close()
 
     scalars = read_scalars(tmp_path)
 
-    assert set(scalars) == {"return/eval", "actor/entropy", "temperature/alpha"}
+    assert set(scalars) == {"return/eval", "actor/entropy_nats", "temperature/value"}
     # Values chosen exactly representable in float32 come back exactly (the test wrote them).
     np.testing.assert_array_equal(scalars["return/eval"].steps, list(returns))
     np.testing.assert_array_equal(scalars["return/eval"].values, list(returns.values()))
     # All 301 points kept: size_guidance 0 keeps every scalar instead of a sample.
-    assert scalars["actor/entropy"].steps.size == 301
+    assert scalars["actor/entropy_nats"].steps.size == 301
     # Source: TensorBoard's Summary.Value.simple_value is a proto float (32-bit), so 0.1 reads back as
     # float32(0.1).
-    assert scalars["temperature/alpha"].values[0] == float(np.float32(0.1))
+    assert scalars["temperature/value"].values[0] == float(np.float32(0.1))
 
 
 def test_resumed_run_keeps_the_later_write_of_a_step(tmp_path: Path) -> None:

@@ -46,7 +46,7 @@ def test_result_json_stands_in_for_missing_event_files(tmp_path: Path) -> None:
     run = load_run(write_run(tmp_path / "r", run_config(0, "auto"), {}, finished(-123.5, -1.0)))
     # Contract: result.json "final" holds return_eval, entropy and alpha at "steps".
     assert run.scalars["return/eval"].value_at(1000) == (1000, -123.5)
-    assert run.scalars["temperature/alpha"].value_at(1000) == (1000, 0.1)
+    assert run.scalars["temperature/value"].value_at(1000) == (1000, 0.1)
     assert run.env_id == "Pendulum-v1"
 
 

@@ -22,7 +22,7 @@ INVERTED_PENDULUM_THRESHOLD = 950.0
 
 def _run(job: tuple[str, list[str], str]) -> dict:
     preset, overrides, run_dir = job
-    return train(compose_config("train", [f"env={preset}", "log.progress=off", *overrides]), Path(run_dir))
+    return train(compose_config("train", [f"env={preset}", "log.progress=off", *overrides]), Path(run_dir)).to_json()
 
 
 @pytest.fixture(scope="module")

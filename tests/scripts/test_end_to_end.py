@@ -99,3 +99,33 @@ def test_evaluate_records_video(trained):
     assert proc.returncode == 0, proc.stderr
     videos = sorted((work / "video_eval").glob("*.mp4"))
     assert len(videos) == 2 and all(v.stat().st_size > 1000 for v in videos)
+
+
+def test_evaluate_reproduces_the_figure_training_printed(trained):
+    # What a first user hit: the train summary's evaluation could not be reproduced by the evaluate
+    # command it suggests (different reset seeds). Without seed=, evaluate reuses the run's own
+    # evaluation episodes, so the two numbers are equal (project requirement, no outside source).
+    work, run_dir, train_proc = trained
+    result = json.loads((run_dir / "result.json").read_text())
+    proc = run_script("evaluate", f"policy={run_dir}", f"out={work}/same.json", cwd=work, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    record = json.loads((work / "same.json").read_text())
+    assert record["seeds"] == result["evaluation_seeds"]
+    assert record["summary"]["return_mean"] == result["evaluation"]["return_mean"]
+    assert record["summary"]["return_std"] == result["evaluation"]["return_std"]
+    assert f"reproduce    kiln evaluate policy={run_dir}" in train_proc.stdout
+    assert "the training run's evaluation episodes" in proc.stdout
+
+
+def test_stochastic_evaluation_is_reproduced_too(tmp_path):
+    # A run evaluated with sampled actions: evaluate deterministic=false repeats its sampling stream.
+    run_dir = tmp_path / "run"
+    proc = run_script("train", *TINY_RUN, "evaluate.deterministic=false", f"hydra.run.dir={run_dir}",
+                      cwd=tmp_path, timeout=300)  # fmt: skip
+    assert proc.returncode == 0, proc.stderr
+    result = json.loads((run_dir / "result.json").read_text())
+    again = run_script("evaluate", f"policy={run_dir}", "deterministic=false", f"out={tmp_path}/s.json",
+                       cwd=tmp_path, timeout=300)  # fmt: skip
+    assert again.returncode == 0, again.stderr
+    record = json.loads((tmp_path / "s.json").read_text())
+    assert record["summary"]["return_mean"] == result["evaluation"]["return_mean"]
