@@ -19,11 +19,12 @@ from envs.task_spec import TaskSpec
 
 # Every key a run config may hold, per section; anything else is a typo we refuse.
 _SECTIONS: dict[str, set[str]] = {
-    "": {"seed", "steps", "threads", "deterministic", "env", "agent", "collect", "evaluate", "log"},
+    "": {"seed", "steps", "threads", "deterministic", "resume", "env", "agent", "collect", "evaluate", "log", "checkpoint"},
     "env": {"id", "name", "max_episode_steps", "kwargs"},
     "collect": {"warmup_steps", "updates_per_env_step"},
     "evaluate": {"every", "episodes", "deterministic", "bias_episodes"},
     "log": {"every", "progress"},
+    "checkpoint": {"every", "keep"},
 }
 
 
@@ -58,6 +59,9 @@ class RunSettings:
     bias_episodes: int
     log_every: int
     progress: str
+    checkpoint_every: int
+    checkpoint_keep: int
+    resume: bool
 
 
 @dataclass(frozen=True)
@@ -112,6 +116,7 @@ def parse_run_config(raw: Mapping[str, Any]) -> RunConfig:
     _check_keys("", raw)
     env, collect = _section(raw, "env"), _section(raw, "collect")
     evaluate, log = _section(raw, "evaluate"), _section(raw, "log")
+    checkpoint = _section(raw, "checkpoint")
     if not isinstance(env.get("id"), str) or not env["id"]:
         raise ConfigError("env.id is missing: choose a preset (env=pendulum) or set env.id=<Gymnasium id>")
     limit = env.get("max_episode_steps")
@@ -146,6 +151,9 @@ def parse_run_config(raw: Mapping[str, Any]) -> RunConfig:
         bias_episodes=checks.integer(evaluate.get("bias_episodes"), "evaluate.bias_episodes", 0, LARGEST_EPISODES),
         log_every=checks.integer(log.get("every"), "log.every", 1, MAX_STEPS),
         progress=checks.choice(log.get("progress", "auto"), "log.progress", ("auto", "bar", "lines", "off")),
+        checkpoint_every=checks.integer(checkpoint.get("every"), "checkpoint.every", 1, MAX_STEPS),
+        checkpoint_keep=checks.integer(checkpoint.get("keep"), "checkpoint.keep", 1, 1000),
+        resume=checks.boolean(raw.get("resume", True), "resume"),
     )
     return RunConfig(run=run, env=env_settings, agent=agent, raw=dict(raw))
 

@@ -1,14 +1,19 @@
 """User-facing errors: one line that names the problem and the fix."""
 
+from __future__ import annotations
+
 from envs.errors import TaskError
 
 
 class KilnError(Exception):
     """A problem with the user's input (config, files, task) that Kiln reports in one line.
 
-    Entry points catch it, print ``kiln: error: <message>`` to stderr and exit with code 2,
-    without a traceback and without touching anything already written.
+    Entry points catch it, print ``kiln: error: <message>`` to stderr and exit with ``exit_code``
+    (2: bad input), without a traceback and without touching anything already written.
     """
+
+    exit_code = 2
+    prefix = "error"
 
 
 class ConfigError(KilnError):
@@ -19,5 +24,59 @@ class PolicyFolderError(KilnError):
     """A saved-policy folder is missing, incomplete or inconsistent."""
 
 
-# Every error a command prints as one line (exit code 2): Kiln's own and the tasks' (envs/ has its own).
+class RunFolderError(KilnError):
+    """A run folder cannot be used: in use by another process, finished with another config, unwritable."""
+
+
+class CheckpointError(KilnError):
+    """A checkpoint cannot be read, or belongs to another config."""
+
+
+class RunStopped(KilnError):
+    """The run was asked to stop (SIGINT, SIGTERM, launcher gone) and checkpointed first.
+
+    Printed as one line saying how to resume; exit code 130 (SIGINT) or 143 (SIGTERM), as a shell
+    reports a process ended by that signal.
+    """
+
+    prefix = "stopped"
+
+    def __init__(self, message: str, exit_code: int) -> None:
+        super().__init__(message)
+        self.exit_code = exit_code
+
+
+class DivergenceError(KilnError):
+    """Training produced a non-finite (or absurdly large) quantity; the run stops before saving it.
+
+    Exit code 3 (not 2): the input was valid, the optimisation failed.
+
+    Args:
+        quantity: What went bad (``reward``, ``critic/td_mse``, ``weights of actor``, ...).
+        value: The offending value.
+        where: When it was seen (``at env step 1234``).
+    """
+
+    exit_code = 3
+
+    def __init__(self, quantity: str, value: float, where: str) -> None:
+        super().__init__(quantity, value, where)
+        self.quantity, self.value, self.where = quantity, value, where
+        self.member = 0
+        self.last_checkpoint: str | None = None
+
+    def __str__(self) -> str:
+        kept = (
+            f"the last good checkpoint {self.last_checkpoint} is kept"
+            if self.last_checkpoint
+            else "no checkpoint had been written yet"
+        )
+        return (
+            f"training diverged {self.where} (member {self.member}): {self.quantity} is {self.value:g}; "
+            f"no policy was saved and {kept}: lower the learning rates or check the task's rewards, "
+            "then start over with resume=false"
+        )
+
+
+# Every error a command prints as one line: Kiln's own and the tasks' (envs/ has its own).
 USER_ERRORS = (KilnError, TaskError)

@@ -6,11 +6,19 @@ import time
 
 import torch
 
+from agents.errors import DivergenceError
+
 # Update diagnostics in the order SoftActorCritic.update returns them.
 UPDATE_TAGS = (
     "critic/td_mse", "critic/q_mean", "critic/q_spread", "critic/target_mean", "actor/objective",
     "actor/entropy_nats", "actor/log_std_mean", "temperature/value", "temperature/objective",
 )  # fmt: skip
+
+
+# A diagnostic beyond this magnitude means training has blown up even if it is still finite (float32
+# reaches 3e38): no sensible reward scale gives squared TD errors or Q-values near 1e15
+# (common practice, no source).
+BLOW_UP = 1e15
 
 
 class LogWindow:
@@ -26,9 +34,19 @@ class LogWindow:
         self._start, self._steps, self._updates, self._update_time = now, 0, 0, 0.0
         self._sum.zero_()
 
-    def add_update(self, values: dict[str, torch.Tensor]) -> None:
-        """Record one update's diagnostics."""
-        self._sum += torch.stack([values[t] for t in UPDATE_TAGS])
+    def add_update(self, values: dict[str, torch.Tensor], step: int) -> None:
+        """Record one update's diagnostics.
+
+        Raises:
+            DivergenceError: If a diagnostic (loss, Q, α, ...) is non-finite or beyond
+                :data:`BLOW_UP`, naming the first such tag.
+        """
+        stacked = torch.stack([values[t] for t in UPDATE_TAGS])
+        # One check per update on nine numbers: cheap beside the update, and it names the exact step.
+        if not bool((stacked.abs() <= BLOW_UP).all()):
+            bad = int((~(stacked.abs() <= BLOW_UP)).nonzero()[0])
+            raise DivergenceError(UPDATE_TAGS[bad], float(stacked[bad]), f"at env step {step}")
+        self._sum += stacked
         self._updates += 1
 
     def add_update_time(self, seconds: float) -> None:
@@ -50,3 +68,19 @@ class LogWindow:
         self.total_update_time += self._update_time
         self._open(now)
         return speed, means
+
+    def state(self) -> tuple[dict[str, int | float], torch.Tensor]:
+        """Counters and the running sums of the open window, for a checkpoint."""
+        counters = {
+            "steps": self._steps, "updates": self._updates, "update_time": self._update_time,
+            "total_updates": self.total_updates, "total_update_time": self.total_update_time,
+        }  # fmt: skip
+        return counters, self._sum.clone()
+
+    def restore(self, counters: dict[str, int | float], sums: torch.Tensor) -> None:
+        """Continue the window a checkpoint saved (its clock restarts now)."""
+        self._open(time.perf_counter())
+        self._steps, self._updates = int(counters["steps"]), int(counters["updates"])
+        self._update_time = float(counters["update_time"])
+        self.total_updates, self.total_update_time = int(counters["total_updates"]), float(counters["total_update_time"])
+        self._sum.copy_(sums)

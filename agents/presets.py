@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import os
 import re
+import secrets
 from pathlib import Path
 from typing import Any
 
@@ -27,6 +28,12 @@ from omegaconf.errors import OmegaConfBaseException
 
 from agents.errors import KilnError
 from agents.renamed import renamed_message, renamed_preset_message
+
+# ${kiln_token:} in a run folder's name: a few random hex digits, so runs launched in the same second
+# (or by two sweeps at once) never share a folder by accident. Cached per config, so a run's folder
+# name is stable once composed.
+if not OmegaConf.has_resolver("kiln_token"):
+    OmegaConf.register_new_resolver("kiln_token", lambda: secrets.token_hex(3), use_cache=True)
 
 CONFIG_DIR = Path(__file__).resolve().parent.parent / "configs"
 PRESETS_ENV = "KILN_PRESETS"

@@ -7,12 +7,15 @@ layout is stated once:
     <run>/events.out.tfevents.*     TensorBoard scalars and the run's hyper-parameters
     <run>/policy/                   the saved policy (see agents.policy_io)
     <run>/evaluations/*.json        records written by the evaluate command
+    <run>/checkpoints/              the newest checkpoints (see agents.checkpoint)
     <run>/result.json               written last: its presence marks a finished run
     <run>/unfinished-<n>/           what an interrupted earlier attempt left behind
+    <run>/.lock                     held (an OS file lock) by the process working in the folder
 """
 
 from __future__ import annotations
 
+import fcntl
 import json
 import os
 import secrets
@@ -26,11 +29,14 @@ CONFIG = "config.yaml"
 RESULT = "result.json"
 POLICY = "policy"
 EVALUATIONS = "evaluations"
+CHECKPOINTS = "checkpoints"
+LOCK = ".lock"
 EVENTS_PREFIX = "events.out.tfevents"
 UNFINISHED_PREFIX = "unfinished-"
 
 
-def _fsync_folder(folder: Path) -> None:
+def fsync_folder(folder: Path) -> None:
+    """Flush a folder's entries to disk."""
     # A rename is durable only once the folder's entry is on disk too.
     fd = os.open(folder, os.O_RDONLY)
     try:
@@ -59,7 +65,7 @@ def write_bytes_atomic(path: Path, data: bytes) -> None:
     except BaseException:
         temporary.unlink(missing_ok=True)
         raise
-    _fsync_folder(path.parent)
+    fsync_folder(path.parent)
 
 
 def write_text_atomic(path: Path, text: str) -> None:
@@ -86,7 +92,7 @@ def replace_folder_atomic(staged: Path, folder: Path) -> None:
         shutil.rmtree(old, ignore_errors=True)
     else:
         os.replace(staged, folder)
-    _fsync_folder(folder.parent)
+    fsync_folder(folder.parent)
 
 
 @dataclass(frozen=True)
@@ -155,6 +161,59 @@ class RunFolder:
 
     def __init__(self, path: Path) -> None:
         self.path = Path(path)
+        self._lock: int | None = None
+
+    def claim(self) -> None:
+        """Take the folder for this process (creating it) until the process ends or :meth:`release`.
+
+        The claim is an OS file lock: it ends when its process dies, however it dies, so a launch
+        into a killed run's folder finds it free and resumes it.
+
+        Raises:
+            RunFolderError: If another live process holds the folder, or it cannot be created.
+        """
+        from agents.errors import RunFolderError
+
+        try:
+            self.path.mkdir(parents=True, exist_ok=True)
+            fd = os.open(self.path / LOCK, os.O_RDWR | os.O_CREAT, 0o644)
+        except OSError as err:
+            raise RunFolderError(
+                f"cannot use run folder {self.path} ({err.strerror}): choose a writable place, e.g. hydra.run.dir=<folder>"
+            ) from None
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            holder = os.pread(fd, 32, 0).decode(errors="replace").strip() or "unknown"
+            os.close(fd)
+            raise RunFolderError(
+                f"run folder {self.path} is in use by another Kiln process (pid {holder}): wait for it to end, "
+                "or launch into another folder"
+            ) from None
+        os.ftruncate(fd, 0)
+        os.pwrite(fd, f"{os.getpid()}\n".encode(), 0)
+        self._lock = fd
+
+    def release(self) -> None:
+        """End this process's claim on the folder."""
+        if self._lock is not None:
+            os.close(self._lock)  # closing the descriptor releases the lock
+            self._lock = None
+
+    @property
+    def checkpoints_path(self) -> Path:
+        return self.path / CHECKPOINTS
+
+    def saved_config(self) -> dict[str, Any] | None:
+        """The config an earlier attempt saved here, or ``None``."""
+        from omegaconf import OmegaConf
+
+        if not self.config_path.is_file():
+            return None
+        try:
+            return OmegaConf.to_container(OmegaConf.load(self.config_path), resolve=True)  # type: ignore[return-value]
+        except Exception:  # a damaged record is treated as absent: the run is set aside, not trusted
+            return None
 
     @property
     def config_path(self) -> Path:
@@ -198,7 +257,9 @@ class RunFolder:
 
     def _set_aside_unfinished(self) -> None:
         leftovers = [
-            p for p in self.path.iterdir() if p.name.startswith(EVENTS_PREFIX) or p.name in (POLICY, CONFIG, EVALUATIONS)
+            p
+            for p in self.path.iterdir()
+            if p.name.startswith(EVENTS_PREFIX) or p.name in (POLICY, CONFIG, EVALUATIONS, CHECKPOINTS)
         ]
         if not leftovers:
             return

@@ -16,8 +16,16 @@ class RunLog:
     """Writes event files directly into the run folder, so that a sweep folder given to
     ``tensorboard --logdir`` lists every run under its folder name."""
 
-    def __init__(self, run_dir: Path) -> None:
-        self.writer = SummaryWriter(log_dir=str(run_dir), flush_secs=10)
+    def __init__(self, run_dir: Path, resume_after: int | None = None) -> None:
+        """Open the run's event log.
+
+        Args:
+            run_dir: The run folder.
+            resume_after: For a resumed run, the step of its checkpoint: TensorBoard then drops what
+                the killed attempt logged after that step (a purge marker), so no step shows twice.
+        """
+        purge = None if resume_after is None else resume_after + 1
+        self.writer = SummaryWriter(log_dir=str(run_dir), flush_secs=10, purge_step=purge)
 
     def scalars(self, values: Mapping[str, float], step: int) -> None:
         """Log each ``tag: value`` at env step ``step``."""

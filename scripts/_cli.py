@@ -8,6 +8,7 @@ a typo ends with one line, exit code 2, and no folder written.
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
 from collections.abc import Callable
 from typing import Any, NoReturn, TypeVar
@@ -20,21 +21,42 @@ from agents.errors import USER_ERRORS, KilnError
 from agents.presets import compose_config, compose_node, use_user_presets
 
 EXIT_BAD_INPUT = 2
+EXIT_INTERRUPTED = 130  # as a shell reports a process ended by SIGINT
+EXIT_TERMINATED = 143  # ... and by SIGTERM
 T = TypeVar("T")
 
 
-def fail(message: str) -> NoReturn:
-    """Print ``kiln: error: <message>`` on one line and exit with code 2."""
-    print(f"kiln: error: {message}", file=sys.stderr, flush=True)
-    raise SystemExit(EXIT_BAD_INPUT)
+def fail(message: str, code: int = EXIT_BAD_INPUT, prefix: str = "error") -> NoReturn:
+    """Print ``kiln: error: <message>`` on one line and exit with ``code`` (2: bad input)."""
+    print(f"kiln: {prefix}: {message}", file=sys.stderr, flush=True)
+    raise SystemExit(code)
 
 
 def guarded(fn: Callable[[], T]) -> T:
-    """Run ``fn``; a :class:`KilnError` or a task's error becomes a one-line message and exit code 2."""
+    """Run ``fn``; a :class:`KilnError` or a task's error becomes a one-line message and its exit code
+    (2 for bad input; 3 when training diverged)."""
     try:
         return fn()
     except USER_ERRORS as err:
-        fail(str(err))
+        fail(str(err), getattr(err, "exit_code", EXIT_BAD_INPUT), getattr(err, "prefix", "error"))
+    except KeyboardInterrupt:
+        # Ctrl-C outside the training loop (which checkpoints first and stops on its own).
+        fail("interrupted (SIGINT) outside training; nothing was left half-written", EXIT_INTERRUPTED, "stopped")
+    except Terminated:
+        fail("terminated (SIGTERM) outside training; nothing was left half-written", EXIT_TERMINATED, "stopped")
+
+
+class Terminated(BaseException):
+    """SIGTERM outside the training loop (which handles it itself), raised to end with one line."""
+
+
+def _raise_terminated(signum: int, frame: object) -> None:
+    raise Terminated()
+
+
+def stop_politely_on_sigterm() -> None:
+    """Make SIGTERM end a command with one line (exit 143) instead of silently (called at start)."""
+    signal.signal(signal.SIGTERM, _raise_terminated)
 
 
 class OneLineParser(argparse.ArgumentParser):

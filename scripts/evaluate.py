@@ -20,8 +20,9 @@ from agents.errors import ConfigError, KilnError
 from agents.policy_eval import EvaluationPlan, evaluate_policy, plan_evaluation
 from agents.policy_io import load_policy, resolve_policy_folder
 from agents.run_folder import POLICY, RunFolder, write_json_atomic
+from agents.streams import LARGEST_EPISODES, LARGEST_SEED
 from agents.presets import CONFIG_DIR
-from kiln_cli._cli import check_overrides, guarded, plural
+from kiln_cli._cli import check_overrides, guarded, stop_politely_on_sigterm, plural
 
 
 def check_evaluate_config(raw: dict[str, Any]) -> None:
@@ -30,6 +31,11 @@ def check_evaluate_config(raw: dict[str, Any]) -> None:
         raise ConfigError("no policy given: kiln evaluate policy=<run folder or policy folder>")
     checks.boolean(raw["deterministic"], "deterministic")
     checks.boolean(raw["video"], "video")
+    # Plain values first: a typo is reported before the policy is even opened.
+    if raw["episodes"] is not None:
+        checks.integer(raw["episodes"], "episodes", 1, LARGEST_EPISODES)
+    if raw["seed"] is not None:
+        checks.integer(raw["seed"], "seed", 0, LARGEST_SEED)
     plan_evaluation(load_policy(Path(raw["policy"])), raw["episodes"], raw["seed"])
 
 
@@ -90,8 +96,8 @@ def _hydra_entry(cfg: DictConfig) -> None:
 
 def main() -> None:
     """Check the command line, then hand it to Hydra."""
-    check_overrides("evaluate", sys.argv[1:], check_evaluate_config)
-    _hydra_entry()
+    stop_politely_on_sigterm()
+    guarded(lambda: (check_overrides("evaluate", sys.argv[1:], check_evaluate_config), _hydra_entry()))
 
 
 if __name__ == "__main__":

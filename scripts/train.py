@@ -19,7 +19,7 @@ from omegaconf import DictConfig, OmegaConf
 from agents.presets import CONFIG_DIR
 from agents.run_folder import RunFolder, RunResult
 from agents.trainer import check_run, train
-from kiln_cli._cli import check_overrides, guarded
+from kiln_cli._cli import check_overrides, guarded, stop_politely_on_sigterm
 
 
 def report(run_dir: Path, result: RunResult) -> None:
@@ -55,8 +55,8 @@ def _hydra_entry(cfg: DictConfig) -> float:
 
 def main() -> None:
     """Check the command line, then hand it to Hydra."""
-    check_overrides("train", sys.argv[1:], check_run)
-    _hydra_entry()
+    stop_politely_on_sigterm()
+    guarded(lambda: (check_overrides("train", sys.argv[1:], check_run), _hydra_entry()))
 
 
 if __name__ == "__main__":

@@ -91,7 +91,9 @@ def test_finished_run_is_left_untouched(tmp_path):
     [
         (["policy=does/not/exist"], ["no such folder"]),
         ([], ["no policy given"]),
-        (["episodes=0", "policy=."], ["episodes must be a positive integer"]),
+        (["episodes=0", "policy=."], ["episodes must be from 1"]),
+        (["seed=-1", "policy=."], ["seed must be from 0"]),
+        (["deterministic=perhaps", "policy=."], ["deterministic must be true or false"]),
     ],
 )
 def test_evaluate_rejects_bad_input(tmp_path, args, phrases):

@@ -107,7 +107,7 @@ def test_own_task_and_presets_train_and_evaluate_from_the_users_folder(user_fold
     assert {p.name for p in (run / "policy").iterdir()} >= {"spec.json", "weights.safetensors"}
     assert "1 deterministic episode of point_task:PointMass-v0 after 300 steps" in proc.stdout
     # Evaluation needs the user's module too (the saved policy names the module-qualified id).
-    evaluated = run_kiln("evaluate", f"policy={run.relative_to(user_folder)}", "episodes=1", cwd=user_folder,
+    evaluated = run_kiln("evaluate", f"policy={run.relative_to(user_folder)}", "episodes=1", "seed=0", cwd=user_folder,
                          timeout=300)  # fmt: skip
     assert evaluated.returncode == 0, evaluated.stderr
     assert "deterministic, 1 episode, reset seed 0" in evaluated.stdout
