@@ -21,11 +21,11 @@ from kiln_cli._cli import OneLineParser, guarded
 def parse_args(argv: list[str] | None) -> argparse.Namespace:
     """The arguments; a bad one ends the command with one ``kiln: error:`` line (exit 2)."""
     parser = OneLineParser(prog="kiln export", description=__doc__.splitlines()[0], epilog=CAUTION)
-    parser.add_argument("policy", type=Path, help="a run folder holding policy/, or the policy folder itself")
-    parser.add_argument("--out", type=Path, required=True, help="the ONNX file to write")
+    parser.add_argument("policy", type=Path, metavar="POLICY", help="a run folder holding policy/, or the policy folder itself")
+    parser.add_argument("--out", type=Path, required=True, metavar="FILE", help="the ONNX file to write")
     parser.add_argument("--stochastic", action="store_true",
                         help="export the sampling controller (extra input: noise [batch, action size] ~ N(0, I))")
-    parser.add_argument("--opset", type=int, default=DEFAULT_OPSET,
+    parser.add_argument("--opset", type=int, default=DEFAULT_OPSET, metavar="N",
                         help=f"ONNX opset, {SUPPORTED_OPSETS.start} to {SUPPORTED_OPSETS.stop - 1} (default {DEFAULT_OPSET})")
     parser.add_argument("--overwrite", action="store_true", help="replace --out if it exists")
     return parser.parse_args(argv)  # fmt: skip

@@ -36,10 +36,14 @@ def save_test_policy(
     return save_policy(folder, actor, spec)
 
 
+def onnx_session(model: Path) -> onnxruntime.InferenceSession:
+    """onnxruntime's CPU session for an exported file."""
+    return onnxruntime.InferenceSession(str(model), providers=["CPUExecutionProvider"])
+
+
 def onnx_actions(model: Path, observations: np.ndarray, noise: np.ndarray | None = None) -> np.ndarray:
     """The exported file run by onnxruntime on a batch."""
-    session = onnxruntime.InferenceSession(str(model), providers=["CPUExecutionProvider"])
     feeds = {"observation": observations.astype(np.float32)}
     if noise is not None:
         feeds["noise"] = noise.astype(np.float32)
-    return session.run(["action"], feeds)[0]
+    return onnx_session(model).run(["action"], feeds)[0]
