@@ -39,7 +39,9 @@ def sample_observations(low: np.ndarray, high: np.ndarray, count: int, rng: np.r
 
 
 @torch.no_grad()
-def kiln_actions(policy: SavedPolicy, observations: np.ndarray, noise_seed: int | None) -> tuple[np.ndarray, np.ndarray | None]:
+def kiln_actions(
+    policy: SavedPolicy, observations: np.ndarray, noise_seed: int | None
+) -> tuple[np.ndarray, np.ndarray | None]:
     """Kiln's actions in task units for a batch, and the noise a stochastic draw used.
 
     The stochastic action comes from Kiln's own sampling path (``actor.sample``) with a generator
@@ -62,7 +64,9 @@ def kiln_actions(policy: SavedPolicy, observations: np.ndarray, noise_seed: int 
     return policy.scale.to_env(action.numpy()), noise.numpy()
 
 
-def exported_actions(session: onnxruntime.InferenceSession, observations: np.ndarray, noise: np.ndarray | None) -> np.ndarray:
+def exported_actions(
+    session: onnxruntime.InferenceSession, observations: np.ndarray, noise: np.ndarray | None
+) -> np.ndarray:
     """The exported controller's actions for a batch (``noise`` only for a stochastic one)."""
     feeds = {OBSERVATION: np.asarray(observations, np.float32)}
     if noise is not None:

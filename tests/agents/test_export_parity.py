@@ -15,10 +15,23 @@ import pytest
 import torch
 from safetensors.numpy import load_file
 
-from agents.export import CAUTION, DEFAULT_OPSET, SUPPORTED_OPSETS, ExportError, export_policy
+from agents.export import (
+    CAUTION,
+    DEFAULT_OPSET,
+    SUPPORTED_OPSETS,
+    ExportError,
+    export_policy,
+)
 from agents.export.parity import kiln_actions, sample_observations
 from agents.policy_io import load_policy
-from tests.agents.export_fixtures import ACT_HIGH, ACT_LOW, OBS_HIGH, OBS_LOW, onnx_actions, save_test_policy
+from tests.agents.export_fixtures import (
+    ACT_HIGH,
+    ACT_LOW,
+    OBS_HIGH,
+    OBS_LOW,
+    onnx_actions,
+    save_test_policy,
+)
 from tests.agents.spec_reference import reference_actions, reference_heads
 
 COUNT = 10_000
@@ -118,7 +131,8 @@ def test_file_declares_its_inputs_outputs_and_the_caution(tmp_path):
     report = export_policy(folder, out, stochastic=True)
     model = onnx.load(str(out))
     onnx.checker.check_model(model, full_check=True)  # onnx's own validator, shapes inferred
-    dims = {v.name: [d.dim_param or d.dim_value for d in v.type.tensor_type.shape.dim] for v in [*model.graph.input, *model.graph.output]}
+    declared = [*model.graph.input, *model.graph.output]
+    dims = {v.name: [d.dim_param or d.dim_value for d in v.type.tensor_type.shape.dim] for v in declared}
     assert dims == {"observation": ["batch", 17], "noise": ["batch", 6], "action": ["batch", 6]}
     meta = {p.key: p.value for p in model.metadata_props}
     assert meta["kiln.controller"] == "stochastic" and meta["kiln.caution"] == CAUTION

@@ -13,7 +13,7 @@ import pytest
 import torch
 
 from agents.export import export_policy
-from agents.policy_eval import plan_evaluation, evaluate_policy
+from agents.policy_eval import evaluate_policy, plan_evaluation
 from agents.policy_io import load_policy
 from agents.presets import compose_config
 from agents.trainer import train
