@@ -25,6 +25,7 @@ COMMANDS: dict[str, tuple[str, str, bool]] = {
     "compare": ("kiln_cli.compare", "compare runs grouped by a config key and write a report (DIR ...)", False),
     "verify": ("kiln_cli.verify", "check Kiln against exact answers (--quick: seconds)", False),
     "bench": ("kiln_cli.bench", "measure update speed on this CPU", False),
+    "export": ("kiln_cli.export", "write a saved policy as an ONNX controller (POLICY --out FILE)", False),
 }
 
 
