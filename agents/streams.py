@@ -4,7 +4,8 @@ A run draws from five sources, each with its own purpose so that changing one ne
 
 * training generator (torch): initial weights, every training policy sample, replay sampling;
 * warm-up generator (NumPy): the uniform random actions before learning starts;
-* training env: reset once with ``seed`` (later resets continue the env's own generator);
+* training env: reset once with ``seed`` (later resets continue the env's own generator); its
+  action space's generator is seeded with ``seed`` too;
 * evaluation generator (torch): policy samples of stochastic evaluations and of the Q-bias
   diagnostic, made afresh for each evaluation, so that how often a run evaluates never changes what
   it learns, and any single evaluation can be repeated by the evaluate command;
@@ -58,6 +59,12 @@ class RunStreams:
     def seed_of_evaluation_generator(self) -> int:
         """The seed :meth:`evaluation_generator` starts from (the evaluate command reuses it)."""
         return self.seed + _STRIDE
+
+    @property
+    def action_space_seed(self) -> int:
+        """Seed of the training env's action-space generator. Kiln never samples from it, but a task
+        or wrapper may, and an unseeded one would start from the OS's entropy and break exact resume."""
+        return self.seed
 
     def evaluation_generator(self) -> torch.Generator:
         """Policy samples of one evaluation (a fresh generator per evaluation, the same each time)."""

@@ -111,6 +111,7 @@ class TrainingLoop:
         self.agent = SoftActorCritic(obs_dim, act_dim, cfg.agent, target, self.generator)
         self.replay = ReplayBuffer(cfg.agent.replay_capacity, obs_dim, act_dim, self.generator)
         self.scale = ActionScale(env.action_space.low, env.action_space.high)
+        env.action_space.seed(self.streams.action_space_seed)
         self.collector = Collector(env, self.replay, self.scale, self.streams.training_env_seed)
         self.eval_seeds = self.streams.evaluation_reset_seeds(r.eval_episodes)
         self.bias_seeds = self.streams.bias_reset_seeds(r.bias_episodes)
