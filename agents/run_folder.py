@@ -20,6 +20,7 @@ import json
 import os
 import secrets
 import shutil
+import socket
 from collections.abc import Mapping
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -95,6 +96,18 @@ def replace_folder_atomic(staged: Path, folder: Path) -> None:
     fsync_folder(folder.parent)
 
 
+def where_this_runs() -> dict[str, Any]:
+    """The host, and the SLURM job when a scheduler started this process (``<array>_<task>`` for an
+    array member, as ``squeue`` shows it), recorded so a finished run says where it was trained."""
+    env = os.environ
+    job = None
+    if env.get("SLURM_ARRAY_JOB_ID") and env.get("SLURM_ARRAY_TASK_ID"):
+        job = f"{env['SLURM_ARRAY_JOB_ID']}_{env['SLURM_ARRAY_TASK_ID']}"
+    elif env.get("SLURM_JOB_ID"):
+        job = env["SLURM_JOB_ID"]
+    return {"host": socket.gethostname(), "slurm_job": job}
+
+
 @dataclass(frozen=True)
 class FinalNumbers:
     """The figures a comparison reads first: the last evaluation's mean return, entropy and α."""
@@ -130,6 +143,7 @@ class RunResult:
     updates_per_s: float | None
     wall_time_s: float
     policy: str = POLICY
+    ran_on: dict[str, Any] = field(default_factory=dict)
     skipped: bool = field(default=False, compare=False)
 
     def to_json(self) -> dict[str, Any]:

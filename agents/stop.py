@@ -45,6 +45,19 @@ class StopRequest:
     def exit_code(self) -> int:
         return EXIT_CODES.get(self.reason or "", 1)
 
+    def pass_on(self) -> None:
+        """Give the stop signal to the handler that was there before (once the checkpoint is written).
+
+        A scheduler's job runner (SLURM through submitit) installs its own SIGTERM handler, which
+        requeues the job: it must still run, or a pre-empted member would never come back.
+        """
+        if self.reason not in ("SIGINT", "SIGTERM"):
+            return
+        signum = signal.Signals[self.reason]
+        previous = self._previous.get(signum)
+        if callable(previous) and previous is not signal.default_int_handler:
+            previous(signum, None)
+
     def _handle(self, signum: int, frame: FrameType | None) -> None:
         self.request(signal.Signals(signum).name)
 

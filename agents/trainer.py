@@ -29,7 +29,7 @@ from agents.policy_io import build_spec, save_policy
 from agents.progress import Progress
 from agents.replay import ReplayBuffer, check_replay_fits
 from agents.rollout import q_minus_return, run_episodes, summarise
-from agents.run_folder import FinalNumbers, RunFolder, RunResult
+from agents.run_folder import FinalNumbers, RunFolder, RunResult, where_this_runs
 from agents.run_log import RunLog
 from agents.sac import SoftActorCritic
 from agents.settings import resolve_target_entropy
@@ -278,6 +278,7 @@ class TrainingLoop:
                 if stop.requested:
                     if self.step % r.checkpoint_every and self.step != r.steps:
                         self._checkpoint()
+                    stop.pass_on()  # a scheduler's own handler (requeue) runs after the checkpoint
                     raise RunStopped(
                         f"{stop.reason} at env step {self.step} of {r.steps}; checkpoint written to "
                         f"{self.last_checkpoint}; run the same command again to resume",
@@ -329,6 +330,7 @@ class TrainingLoop:
             updates=window.total_updates,
             updates_per_s=window.total_updates / window.total_update_time if window.total_update_time else None,
             wall_time_s=self.wall_before + (time.perf_counter() - self.started),
+            ran_on=where_this_runs(),
         )
         self.folder.write_result(result)
         return result

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import hydra
 from hydra.core.hydra_config import HydraConfig
+from hydra_plugins.kiln_slurm_launcher import register as register_slurm_launcher
 from omegaconf import DictConfig, OmegaConf
 
 from agents.presets import CONFIG_DIR
@@ -56,6 +57,7 @@ def _hydra_entry(cfg: DictConfig) -> float:
 def main() -> None:
     """Check the command line, then hand it to Hydra."""
     stop_politely_on_sigterm()
+    register_slurm_launcher()  # launcher=slurm; an editable install hides it from Hydra's plugin scan
     guarded(lambda: (check_overrides("train", sys.argv[1:], check_run), _hydra_entry()))
 
 
