@@ -46,9 +46,19 @@ _PARTIAL_PREFIX = ".partial-"
 _FREE_KEYS = ("log", "checkpoint", "resume", "steps", "threads")
 
 
-def config_fingerprint(config: Mapping[str, Any]) -> dict[str, Any]:
-    """The part of a resolved config that a resumed run must share with the checkpoint's."""
-    return {k: v for k, v in config.items() if k not in _FREE_KEYS}
+def config_fingerprint(config: Mapping[str, Any]) -> str:
+    """The part of a resolved config that a resumed run must share with the checkpoint's, as YAML
+    text (YAML writes NaN and infinity, which a task's options may hold; text compares exactly)."""
+    from omegaconf import OmegaConf
+
+    return OmegaConf.to_yaml(OmegaConf.create({k: v for k, v in config.items() if k not in _FREE_KEYS}))
+
+
+def config_difference(theirs: str, ours: str) -> str:
+    """The first key whose value differs between two fingerprints, as ``key: a there, b now``."""
+    import yaml
+
+    return _first_difference(yaml.safe_load(theirs), yaml.safe_load(ours))
 
 
 def _first_difference(a: Any, b: Any, path: str = "") -> str:
@@ -192,10 +202,11 @@ class CheckpointStore:
                 f"{where} has checkpoint format {manifest.get('format_version')!r}, this Kiln reads {FORMAT_VERSION}: "
                 "resume with the Kiln that wrote it, or pass resume=false"
             )
-        theirs = manifest.get("config")
-        if theirs != config_fingerprint(config):
+        theirs, ours = manifest.get("config"), config_fingerprint(config)
+        if theirs != ours:
+            difference = config_difference(theirs, ours) if isinstance(theirs, str) else "no config recorded"
             raise CheckpointError(
-                f"{where} was written by a run with another config ({_first_difference(theirs, config_fingerprint(config))}): "
+                f"{where} was written by a run with another config ({difference}): "
                 "resume with the same config, or pass resume=false to set the attempt aside and start over"
             )
         tensors = _read_tensors(where / STATE)

@@ -55,7 +55,9 @@ class StopRequest:
             return
         signum = signal.Signals[self.reason]
         previous = self._previous.get(signum)
-        if callable(previous) and previous is not signal.default_int_handler:
+        # Python's Ctrl-C handler and Kiln's own command-line handler (marked ``kiln_own``) would only
+        # turn the stop into an exception; the loop reports the stop itself.
+        if callable(previous) and previous is not signal.default_int_handler and not getattr(previous, "kiln_own", False):
             previous(signum, None)
 
     def _handle(self, signum: int, frame: FrameType | None) -> None:

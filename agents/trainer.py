@@ -20,7 +20,7 @@ import torch
 from omegaconf import OmegaConf
 
 from agents.action_scale import ActionScale
-from agents.checkpoint import CheckpointStore, config_fingerprint
+from agents.checkpoint import CheckpointStore, config_difference, config_fingerprint
 from agents.collector import Collector
 from agents.config import RunConfig, parse_run_config
 from agents.errors import DivergenceError, RunFolderError, RunStopped
@@ -339,11 +339,9 @@ class TrainingLoop:
 def _check_finished_config(folder: RunFolder, raw: Mapping[str, Any]) -> None:
     saved = folder.saved_config()
     if saved is not None and config_fingerprint(saved) != config_fingerprint(raw):
-        from agents.checkpoint import _first_difference
-
         raise RunFolderError(
             f"{folder.path} already holds a finished run with another config "
-            f"({_first_difference(config_fingerprint(saved), config_fingerprint(raw))}); it is left as it is: "
+            f"({config_difference(config_fingerprint(saved), config_fingerprint(raw))}); it is left as it is: "
             "launch into another folder to train this config"
         )
 

@@ -54,6 +54,9 @@ def _raise_terminated(signum: int, frame: object) -> None:
     raise Terminated()
 
 
+_raise_terminated.kiln_own = True  # type: ignore[attr-defined]  # the training loop does not pass stops on to it
+
+
 def stop_politely_on_sigterm() -> None:
     """Make SIGTERM end a command with one line (exit 143) instead of silently (called at start)."""
     signal.signal(signal.SIGTERM, _raise_terminated)

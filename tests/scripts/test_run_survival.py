@@ -1,0 +1,174 @@
+"""Runs that survive, driven as a user would: stop signals, resuming, folder claims, refusals.
+
+Project requirements (no outside source): SIGINT/SIGTERM finish the step, checkpoint, print one line
+saying how to resume and exit 130/143 (the shell's convention for those signals); the same command
+resumes; a folder in use is refused; a finished run is never touched; bad checkpoints are refused
+with one line, exit 2, nothing on disk changed.
+"""
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
+
+from agents.run_folder import RunFolder
+from tests.scripts.cli import REPO, TINY_RUN, assert_one_line_error, run_script
+
+LONG_RUN = (*TINY_RUN[:-1], "steps=20000", "agent.replay_capacity=20000", "evaluate.every=1000",
+            "log.every=100", "checkpoint.every=500", "log.progress=off")  # fmt: skip
+SHORT_RUN = (*TINY_RUN, "checkpoint.every=100", "log.progress=off")
+
+
+def _snapshot(folder: Path) -> dict[str, tuple[int, bytes]]:
+    return {
+        str(p.relative_to(folder)): (p.stat().st_mtime_ns, p.read_bytes())
+        for p in sorted(folder.rglob("*")) if p.is_file() and p.name != ".lock"
+    }  # fmt: skip
+
+
+def _start(run_dir: Path, cwd: Path, *extra: str) -> subprocess.Popen:
+    return subprocess.Popen(
+        [sys.executable, str(REPO / "scripts" / "train.py"), *LONG_RUN, *extra, f"hydra.run.dir={run_dir}"],
+        cwd=cwd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        env=dict(os.environ, PYTHONUNBUFFERED="1"),
+    )  # fmt: skip
+
+
+def _wait_for_checkpoint(run_dir: Path, proc: subprocess.Popen, timeout: float = 180) -> None:
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if any((run_dir / "checkpoints").glob("step-*")):
+            return
+        assert proc.poll() is None, proc.communicate()
+        time.sleep(0.2)
+    raise AssertionError("no checkpoint appeared")
+
+
+@pytest.mark.parametrize("sig,code", [(signal.SIGTERM, 143), (signal.SIGINT, 130)])
+def test_stop_signal_checkpoints_says_how_to_resume_and_the_same_command_resumes(tmp_path, sig, code):
+    run_dir = tmp_path / "run"
+    proc = _start(run_dir, tmp_path)
+    _wait_for_checkpoint(run_dir, proc)
+    proc.send_signal(sig)
+    _, stderr = proc.communicate(timeout=120)
+    assert proc.returncode == code, stderr
+    lines = [line for line in stderr.splitlines() if line.strip()]
+    assert len(lines) == 1 and "Traceback" not in stderr, stderr
+    assert lines[0].startswith(f"kiln: stopped: {sig.name} at env step ")
+    assert "run the same command again to resume" in lines[0]
+    stopped_at = int(lines[0].split("at env step ")[1].split()[0])
+    assert (run_dir / "checkpoints" / f"step-{stopped_at:012d}").is_dir()
+    assert not (run_dir / "result.json").exists()
+    # The same command resumes from that checkpoint (fewer steps to keep the test short).
+    again = run_script("train", *LONG_RUN, f"steps={stopped_at + 200}", f"hydra.run.dir={run_dir}",
+                       cwd=tmp_path, timeout=300)  # fmt: skip
+    assert again.returncode == 0, again.stderr
+    result = json.loads((run_dir / "result.json").read_text())
+    assert result["steps"] == stopped_at + 200
+    events = EventAccumulator(str(run_dir), size_guidance={"scalars": 0})
+    events.Reload()
+    steps = [e.step for e in events.Scalars("speed/env_steps_per_s")]
+    assert steps == sorted(set(steps)), "a step was logged twice"
+
+
+def test_a_second_launch_into_a_live_run_is_refused(tmp_path):
+    run_dir = tmp_path / "run"
+    holder = RunFolder(run_dir)
+    holder.claim()  # this test process plays the live run
+    try:
+        proc = run_script("train", *SHORT_RUN, f"hydra.run.dir={run_dir}", cwd=tmp_path, timeout=120)
+        assert_one_line_error(proc, "is in use by another Kiln process", f"pid {os.getpid()}")
+        assert sorted(p.name for p in run_dir.iterdir()) == [".lock"]
+    finally:
+        holder.release()
+
+
+def test_finished_run_with_another_config_is_refused_and_left_untouched(tmp_path):
+    run_dir = tmp_path / "run"
+    first = run_script("train", *SHORT_RUN, f"hydra.run.dir={run_dir}", cwd=tmp_path, timeout=300)
+    assert first.returncode == 0, first.stderr
+    before = _snapshot(run_dir)
+    proc = run_script("train", *SHORT_RUN, "agent.discount=0.9", f"hydra.run.dir={run_dir}", cwd=tmp_path, timeout=120)
+    assert_one_line_error(proc, "already holds a finished run with another config", "agent.discount")
+    assert _snapshot(run_dir) == before
+    # The same config is skipped quietly, still without touching anything.
+    same = run_script("train", *SHORT_RUN, f"hydra.run.dir={run_dir}", cwd=tmp_path, timeout=120)
+    assert same.returncode == 0 and "already holds a finished run" in same.stdout
+    assert _snapshot(run_dir) == before
+
+
+@pytest.fixture
+def stopped_run(tmp_path):
+    """A run stopped by SIGTERM with checkpoints written."""
+    run_dir = tmp_path / "run"
+    proc = _start(run_dir, tmp_path)
+    _wait_for_checkpoint(run_dir, proc)
+    proc.send_signal(signal.SIGTERM)
+    proc.communicate(timeout=120)
+    assert proc.returncode == 143
+    return run_dir
+
+
+def test_resume_false_sets_the_attempt_aside_and_starts_over(stopped_run, tmp_path):
+    proc = run_script("train", *LONG_RUN, "steps=300", "resume=false", f"hydra.run.dir={stopped_run}",
+                      cwd=tmp_path, timeout=300)  # fmt: skip
+    assert proc.returncode == 0, proc.stderr
+    aside = stopped_run / "unfinished-1"
+    assert (aside / "checkpoints").is_dir() and (aside / "config.yaml").is_file()
+    assert json.loads((stopped_run / "result.json").read_text())["steps"] == 300
+
+
+def test_checkpoint_of_another_config_is_refused_and_nothing_changes(stopped_run, tmp_path):
+    before = _snapshot(stopped_run)
+    proc = run_script("train", *LONG_RUN, "agent.actor.lr=0.02", f"hydra.run.dir={stopped_run}", cwd=tmp_path, timeout=120)
+    assert_one_line_error(proc, "was written by a run with another config", "agent.actor.lr", "resume=false")
+    assert _snapshot(stopped_run) == before
+
+
+@pytest.mark.parametrize("damage", ["zero-byte state", "truncated replay", "manifest not JSON", "manifest of another kind"])
+def test_damaged_checkpoint_is_refused_with_one_line(stopped_run, tmp_path, damage):
+    newest = sorted((stopped_run / "checkpoints").glob("step-*"))[-1]
+    if damage == "zero-byte state":
+        (newest / "state.safetensors").write_bytes(b"")
+    elif damage == "truncated replay":
+        name = next(iter(json.loads((newest / "manifest.json").read_text())["replay"]["chunks"].values()))
+        chunk = stopped_run / "checkpoints" / "replay" / name
+        chunk.write_bytes(chunk.read_bytes()[:100])
+    elif damage == "manifest not JSON":
+        (newest / "manifest.json").write_bytes(b"\xff\xfe not json")
+    else:
+        (newest / "manifest.json").write_text("[]")
+    before = _snapshot(stopped_run)
+    proc = run_script("train", *LONG_RUN, f"hydra.run.dir={stopped_run}", cwd=tmp_path, timeout=120)
+    assert_one_line_error(proc, "resume=false")
+    assert _snapshot(stopped_run) == before
+
+
+def test_divergence_from_the_command_line_exits_3_with_one_line_and_no_policy(tmp_path):
+    run_dir = tmp_path / "run"
+    proc = run_script("train", *SHORT_RUN, "agent.critic.lr=1e5", "agent.actor.lr=1e5", f"hydra.run.dir={run_dir}",
+                      cwd=tmp_path, timeout=300)  # fmt: skip
+    assert proc.returncode == 3, proc.stderr
+    lines = [line for line in proc.stderr.splitlines() if line.strip()]
+    assert len(lines) == 1 and lines[0].startswith("kiln: error: training diverged at env step "), proc.stderr
+    assert "(member 0)" in lines[0]
+    assert not (run_dir / "policy").exists() and not (run_dir / "result.json").exists()
+
+
+def test_two_runs_launched_together_get_their_own_folders(tmp_path):
+    procs = [
+        subprocess.Popen([sys.executable, str(REPO / "scripts" / "train.py"), *SHORT_RUN], cwd=tmp_path,
+                         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        for _ in range(2)
+    ]  # fmt: skip
+    for proc in procs:
+        _, err = proc.communicate(timeout=300)
+        assert proc.returncode == 0, err
+    runs = sorted((tmp_path / "runs" / "pendulum").iterdir())
+    assert len(runs) == 2 and all((run / "result.json").is_file() for run in runs)
