@@ -6,7 +6,7 @@ import pytest
 import torch
 
 from agents.actor import SquashedGaussianActor
-from agents.policy_eval import evaluate_policy
+from agents.policy_eval import evaluate_policy, plan_evaluation
 from agents.policy_io import build_spec, load_policy, save_policy
 
 
@@ -16,7 +16,7 @@ def test_record_lists_episodes_with_return_and_counts_them_in_the_summary(tmp_pa
     act_space = gym.spaces.Box(-2.0, 2.0, (1,), np.float32)
     env = {"id": "Pendulum-v1", "kwargs": {}, "max_episode_steps": None}
     policy = load_policy(save_policy(tmp_path / "policy", actor, build_spec(actor, obs_space, act_space, env, {})))
-    result = evaluate_policy(policy, episodes=2, seed=4)
+    result = evaluate_policy(policy, plan_evaluation(policy, episodes=2, seed=4))
     # `episodes` is a count wherever it appears (as in result.json); the per-episode list has its own name.
     assert set(result) == {"episode_list", "summary"}
     episodes = result["episode_list"]

@@ -6,6 +6,7 @@ from pathlib import Path
 import pytest
 
 from kiln_cli._cli import plural
+from agents.policy_eval import EvaluationPlan
 from kiln_cli.evaluate import episodes_line
 from tests.scripts.cli import run_script
 
@@ -29,7 +30,8 @@ def test_help_lists_only_the_keys_evaluate_accepts(tmp_path: Path) -> None:
     ],
 )
 def test_episodes_line(mode: str, episodes: int, seed: int, text: str) -> None:
-    assert episodes_line(mode, episodes, seed) == text
+    plan = EvaluationPlan([seed + i for i in range(episodes)], seed, f"seed={seed}")
+    assert episodes_line(mode, plan) == f"{text} (seed={seed})"
 
 
 @pytest.mark.parametrize("count,text", [(0, "0 runs"), (1, "1 run"), (2, "2 runs")])
