@@ -8,9 +8,7 @@ a typo ends with one line, exit code 2, and no folder written.
 from __future__ import annotations
 
 import argparse
-import signal
 import sys
-import threading
 from collections.abc import Callable
 from typing import Any, NoReturn, TypeVar
 
@@ -23,18 +21,6 @@ from agents.presets import compose_config, compose_node, use_user_presets
 
 EXIT_BAD_INPUT = 2
 T = TypeVar("T")
-
-
-def ignore_file_size_signal() -> None:
-    """Make a write past the file-size limit (ulimit -f) fail with EFBIG, an OSError that the
-    commands report in one line, instead of killing the process: SIGXFSZ's default action
-    (signal(7)), which would leave a half-written file and no message."""
-    if hasattr(signal, "SIGXFSZ") and threading.current_thread() is threading.main_thread():
-        signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
-
-
-# At import: every command imports this module before it writes anything.
-ignore_file_size_signal()
 
 
 def fail(message: str) -> NoReturn:
