@@ -180,3 +180,27 @@ def test_file_size_limit_in_a_new_folder_removes_the_folder(tmp_path: Path) -> N
     assert_one_line_error(proc, "file-size limit")
     assert tree(tmp_path) == before
 
+
+
+def _verify(cwd: Path, *args: str, file_size: int | None = None) -> object:
+    return run_script("verify", "--quick", *args, cwd=cwd, timeout=180, env=ENV, preexec_fn=restricted(file_size))
+
+
+def test_verify_out_in_a_read_only_folder_is_refused_before_any_check(tmp_path: Path) -> None:
+    _read_only(tmp_path / "locked")
+    try:
+        proc = _verify(tmp_path, "--out", str(tmp_path / "locked" / "v.json"))
+    finally:
+        (tmp_path / "locked").chmod(0o755)
+    assert_one_line_error(proc, f"cannot write to {tmp_path / 'locked'}", "permission denied")
+    assert proc.stdout == ""  # refused before the first check ran
+    assert tree(tmp_path) == {"locked": None}
+
+
+def test_verify_out_past_the_file_size_limit_is_one_line_exit_2_and_keeps_the_earlier_table(tmp_path: Path) -> None:
+    out = tmp_path / "v.json"
+    out.write_text("earlier table")
+    proc = _verify(tmp_path, "--out", str(out), file_size=200)  # the JSON table is several kB
+    assert_one_line_error(proc, f"cannot write {out}", "file-size limit")
+    assert "4 of 4 checks passed" in proc.stdout
+    assert tree(tmp_path) == {"v.json": b"earlier table"}
