@@ -16,7 +16,7 @@ import torch
 from agents.actor import SquashedGaussianActor
 from agents.policy_io import SPEC, WEIGHTS, build_spec, save_policy
 from tests.pickle_bomb import pickle_bomb
-from tests.scripts.cli import REPO, assert_one_line_error, run_kiln, run_script
+from tests.scripts.cli import REPO, assert_one_line_error, run_script
 from tests.scripts.restricted import NO_BYTECODE, restricted, tree
 
 # The scripts import this worktree's packages, not another checkout's installed ones.
@@ -204,3 +204,93 @@ def test_verify_out_past_the_file_size_limit_is_one_line_exit_2_and_keeps_the_ea
     assert_one_line_error(proc, f"cannot write {out}", "file-size limit")
     assert "4 of 4 checks passed" in proc.stdout
     assert tree(tmp_path) == {"v.json": b"earlier table"}
+
+
+def _sweep(root: Path, unfinished: int = 1) -> Path:
+    """Two finished runs per group and ``unfinished`` runs without result.json (invented numbers)."""
+    from tests.agents.compare_fixtures import run_config, training_scalars, write_run
+
+    sweep = root / "sweep"
+    for seed, target in enumerate([-3.0, -3.0, -1.0, -1.0]):
+        write_run(sweep / f"run{seed}", run_config(seed, target), training_scalars(-100.0 - seed, target, 0.1, target))
+    for seed in range(4, 4 + unfinished):
+        # Still training: event files up to step 500 of 1000, no result.json.
+        write_run(sweep / f"run{seed}", run_config(seed, -1.0),
+                  training_scalars(-900.0, -1.0, 0.1, -1.0, steps=(0, 250, 500)), finished=False)  # fmt: skip
+    return sweep
+
+
+def _compare(cwd: Path, *args: str, file_size: int | None = None) -> object:
+    return run_script("compare", *args, "--resamples", "50", cwd=cwd, timeout=180, env=ENV,
+                      preexec_fn=restricted(file_size))  # fmt: skip
+
+
+def test_compare_leaves_unfinished_runs_out_with_a_note(tmp_path: Path) -> None:
+    sweep = _sweep(tmp_path)
+    proc = _compare(tmp_path, str(sweep))
+    assert proc.returncode == 0, proc.stderr
+    assert "left out 1 unfinished run(s) (no result.json yet)" in proc.stdout and "run4" in proc.stdout
+    numbers = json.loads((sweep / "report" / "comparison.json").read_text())
+    assert sorted(run["run"] for run in numbers["runs"]) == ["run0", "run1", "run2", "run3"]
+    # Compared at the last step every finished run reached (1000), not the unfinished run's 500.
+    assert numbers["settings"]["step"] == 1000
+
+
+def test_compare_includes_unfinished_runs_marked_on_request(tmp_path: Path) -> None:
+    sweep = _sweep(tmp_path)
+    proc = _compare(tmp_path, str(sweep), "--include-unfinished")
+    assert proc.returncode == 0, proc.stderr
+    assert "included 1 unfinished run(s)" in proc.stdout
+    numbers = json.loads((sweep / "report" / "comparison.json").read_text())
+    assert {run["run"]: run["finished"] for run in numbers["runs"]} == {
+        "run0": True, "run1": True, "run2": True, "run3": True, "run4": False}
+    assert "| run4 (unfinished) |" in (sweep / "report" / "report.md").read_text()
+
+
+def test_compare_of_only_unfinished_runs_says_how_to_include_them(tmp_path: Path) -> None:
+    from tests.agents.compare_fixtures import run_config, training_scalars, write_run
+
+    run = write_run(tmp_path / "run", run_config(0, -1.0), training_scalars(-1.0, -1.0, 0.1, -1.0), finished=False)
+    before = tree(tmp_path)
+    assert_one_line_error(_compare(tmp_path, str(run)), "every run found is unfinished", "--include-unfinished")
+    assert tree(tmp_path) == before
+
+
+def test_compare_resamples_are_capped(tmp_path: Path) -> None:
+    sweep = _sweep(tmp_path, unfinished=0)
+    before = tree(tmp_path)
+    proc = run_script("compare", str(sweep), "--resamples", str(10**12), cwd=tmp_path, timeout=120, env=ENV)
+    assert_one_line_error(proc, f"--resamples {10**12} is above the cap of 100000", "in memory")
+    assert tree(tmp_path) == before
+
+
+def test_compare_out_in_a_read_only_folder_is_refused_before_loading(tmp_path: Path) -> None:
+    sweep = _sweep(tmp_path, unfinished=0)
+    _read_only(tmp_path / "locked")
+    before = tree(tmp_path)
+    try:
+        proc = _compare(tmp_path, str(sweep), "--out", str(tmp_path / "locked" / "report"))
+    finally:
+        (tmp_path / "locked").chmod(0o755)
+    assert_one_line_error(proc, f"cannot write to {tmp_path / 'locked' / 'report'}", "permission denied", "--out")
+    assert tree(tmp_path) == before
+
+
+def test_compare_past_the_file_size_limit_removes_the_new_report_folder(tmp_path: Path) -> None:
+    sweep = _sweep(tmp_path, unfinished=0)
+    before = tree(tmp_path)
+    # groups.csv fits in 400 bytes; the curves and figures do not.
+    proc = _compare(tmp_path, str(sweep), file_size=400)
+    assert_one_line_error(proc, f"cannot write the report to {sweep / 'report'}", "file-size limit")
+    assert tree(tmp_path) == before
+
+
+def test_compare_past_the_file_size_limit_keeps_an_earlier_report_whole(tmp_path: Path) -> None:
+    sweep = _sweep(tmp_path, unfinished=0)
+    assert _compare(tmp_path, str(sweep)).returncode == 0
+    earlier = tree(sweep / "report")
+    proc = _compare(tmp_path, str(sweep), file_size=400)
+    assert_one_line_error(proc, "file-size limit")
+    # Every file is the earlier one or a complete new one (same inputs, same seed: the same bytes),
+    # and no temporary is left.
+    assert tree(sweep / "report") == earlier
