@@ -232,10 +232,10 @@ def _check_format(spec: dict[str, Any], path: Path) -> None:
             f"retrain it, or load it with the Kiln version that saved it ({str(spec.get('kiln_version'))[:20]})"
         )
     block = mapping(spec.get("actor"), "actor", path)
-    architecture, version = block.get("architecture"), block.get("architecture_version", 0)
-    if architecture != ARCHITECTURE or not isinstance(version, int) or version > ARCHITECTURE_VERSION:
+    architecture, revision = block.get("architecture"), block.get("architecture_version", 0)
+    if architecture != ARCHITECTURE or not isinstance(revision, int) or revision > ARCHITECTURE_VERSION:
         raise PolicyFolderError(
-            f"{path} describes actor {str(architecture)[:40]!r} version {str(version)[:20]}, "
+            f"{path} describes actor {str(architecture)[:40]!r} version {str(revision)[:20]}, "
             "which this Kiln cannot rebuild: upgrade Kiln"
         )
 
@@ -247,7 +247,8 @@ def _check_weights_header(path: Path, shape: ActorShape) -> None:
     expected = shape.tensor_shapes()
     try:
         with safe_open(str(path), framework="pt") as file:
-            found = {name: (tuple(file.get_slice(name).get_shape()), file.get_slice(name).get_dtype()) for name in file.keys()}
+            slices = {name: file.get_slice(name) for name in file.keys()}  # noqa: SIM118 (a safetensors file, not a dict)
+            found = {name: (tuple(part.get_shape()), part.get_dtype()) for name, part in slices.items()}
     except (SafetensorError, OSError, ValueError) as err:
         raise bad(path, f"cannot be read as safetensors ({str(err).splitlines()[0][:80]})") from None
     if {name: dims for name, (dims, _) in found.items()} != expected:

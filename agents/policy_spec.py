@@ -13,6 +13,7 @@ import math
 import re
 from collections.abc import Mapping
 from dataclasses import dataclass
+from itertools import pairwise
 from pathlib import Path
 from typing import Any
 
@@ -134,7 +135,7 @@ class ActorShape:
         """Each tensor's name and shape, as ``spec.json``'s weight layout documents them."""
         sizes = [self.observation_size, *self.layer_widths, 2 * self.action_size]
         shapes: dict[str, tuple[int, ...]] = {}
-        for i, (n_in, n_out) in enumerate(zip(sizes, sizes[1:])):
+        for i, (n_in, n_out) in enumerate(pairwise(sizes)):
             shapes[f"layers.{i}.weight"] = (n_in, n_out)
             shapes[f"layers.{i}.bias"] = (n_out,)
         return shapes

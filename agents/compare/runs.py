@@ -279,13 +279,13 @@ def select_finished(runs: Sequence[Run], include_unfinished: bool) -> tuple[list
     if not unfinished:
         return list(runs), []
     if include_unfinished:
-        return list(runs), [f"included {len(unfinished)} unfinished run(s) (no result.json yet), marked "
-                             f"unfinished in the run table: {listed(unfinished)}"]  # fmt: skip
+        note = f"included {len(unfinished)} unfinished run(s) (no result.json yet), marked unfinished in the run table: "
+        return list(runs), [note + listed(unfinished)]
     finished = [run for run in runs if run.finished]
     if not finished:
         raise CompareInputError(
             f"every run found is unfinished (no result.json yet): {listed(unfinished)}",
             "wait until they finish, or pass --include-unfinished to compare them as they stand",
         )
-    return finished, [f"left out {len(unfinished)} unfinished run(s) (no result.json yet): {listed(unfinished)}; "
-                      "pass --include-unfinished to include them"]  # fmt: skip
+    note = f"left out {len(unfinished)} unfinished run(s) (no result.json yet): {listed(unfinished)}"
+    return finished, [note + "; pass --include-unfinished to include them"]

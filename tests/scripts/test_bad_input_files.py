@@ -5,7 +5,6 @@ files is in tests/agents/test_policy_files.py; here each kind goes through the c
 from __future__ import annotations
 
 import json
-import os
 from pathlib import Path
 
 import gymnasium as gym
