@@ -10,10 +10,12 @@ import gymnasium as gym
 import torch
 
 from agents import checks
-from agents.errors import KilnError
-from agents.policy_io import SavedPolicy
+from agents.errors import ConfigError, KilnError, PolicyFolderError
+from agents.policy_io import SPEC, SavedPolicy
+from agents.policy_spec import task_module
 from agents.rollout import run_episodes, summarise
 from agents.streams import LARGEST_EPISODES, LARGEST_SEED, RunStreams
+from agents.writable import reason
 from envs.make import make_env
 from envs.task_spec import TaskSpec
 
@@ -21,6 +23,28 @@ from envs.task_spec import TaskSpec
 # Without a run's own record (a policy saved elsewhere), evaluation falls back to these.
 DEFAULT_EPISODES = 10
 DEFAULT_SEED = 0
+
+
+def check_task_module(task_id: str, allowed: str | None) -> None:
+    """Refuse a task id whose module part the user has not named: building the task would import
+    that module, running code chosen by whoever wrote the policy folder.
+
+    Args:
+        task_id: The policy's task id (already checked for its form by the loader).
+        allowed: The module the user allows on the command line (``task_module=``), or None.
+
+    Raises:
+        ConfigError: If the id names a module other than ``allowed``, or ``allowed`` is given for an
+            id without one.
+    """
+    module = task_module(task_id)
+    if module is not None and allowed != module:
+        raise ConfigError(
+            f"the policy's task {task_id!r} names Python module {module!r}, which evaluation would import "
+            f"and run: if you trust it, add task_module={module} to the command line"
+        )
+    if allowed is not None and module is None:
+        raise ConfigError(f"task_module={allowed} is given, but the policy's task {task_id!r} names no module: drop it")
 
 
 @dataclass(frozen=True)
@@ -49,6 +73,11 @@ def plan_evaluation(policy: SavedPolicy, episodes: int | None, seed: int | None)
     run_seed = config.get("seed") if isinstance(config, dict) else None
     run_episodes_count = (config.get("evaluate") or {}).get("episodes") if isinstance(config, dict) else None
     if seed is None and isinstance(run_seed, int) and isinstance(run_episodes_count, int):
+        if not (0 <= run_seed <= LARGEST_SEED and 1 <= run_episodes_count <= LARGEST_EPISODES):
+            raise PolicyFolderError(
+                f"{SPEC} records seed {str(run_seed)[:30]} and evaluate.episodes {str(run_episodes_count)[:30]}, "
+                f"outside 0..{LARGEST_SEED} and 1..{LARGEST_EPISODES}: pass seed=<n> and episodes=<n>"
+            )
         streams = RunStreams(run_seed)
         count = episodes if episodes is not None else run_episodes_count
         return EvaluationPlan(
@@ -66,6 +95,7 @@ def evaluate_policy(
     plan: EvaluationPlan,
     deterministic: bool = True,
     video_dir: Path | None = None,
+    task_module: str | None = None,
 ) -> dict[str, Any]:
     """Run the planned seeded episodes and summarise them.
 
@@ -74,6 +104,7 @@ def evaluate_policy(
         plan: Reset seeds and the sampling seed (see :func:`plan_evaluation`).
         deterministic: Act with ``tanh(mean)``; otherwise sample from the policy.
         video_dir: Record every episode as MP4 into this folder (Gymnasium's video recorder).
+        task_module: The module the user allows the task id to name (see :func:`check_task_module`).
 
     Returns:
         ``{"episode_list": [...], "summary": {...}}``: one record per episode (``seed``, ``return``,
@@ -81,9 +112,11 @@ def evaluate_policy(
 
     Raises:
         TaskError: If the task cannot be created.
-        KilnError: If it cannot be rendered.
+        KilnError: If it cannot be rendered, the video cannot be written, or the task id names a
+            module the user did not allow.
     """
     env_spec = policy.spec["env"]
+    check_task_module(env_spec["id"], task_module)
     env = make_env(TaskSpec.from_record(env_spec), render_mode="rgb_array" if video_dir is not None else None)
     obs_shape = tuple(policy.spec["observation_space"]["shape"])
     if env.observation_space.shape != obs_shape:
@@ -98,6 +131,10 @@ def evaluate_policy(
         result = run_episodes(env, lambda o: policy.act(o, deterministic, generator), plan.reset_seeds)
     except gym.error.DependencyNotInstalled as err:
         raise KilnError(f"video needs a renderer that is not installed ({err}): pip install 'kiln-sac[video]'") from None
+    except OSError as err:
+        if video_dir is None:
+            raise
+        raise KilnError(f"cannot write the videos to {video_dir} ({reason(err)}): free space, or drop video") from None
     except Exception as err:
         if "OpenGL" in str(err) or "GL" in type(err).__name__:
             raise KilnError(

@@ -9,22 +9,26 @@ from __future__ import annotations
 
 import json
 import math
+import os
+import re
+import secrets
 import shutil
-import tempfile
+import socket
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import torch
-from safetensors import SafetensorError
-from safetensors.torch import load_file, save_file
+from safetensors import SafetensorError, safe_open
+from safetensors.torch import load_file, save
 
 from agents.action_scale import ActionScale
 from agents.actor import SquashedGaussianActor
 from agents.errors import PolicyFolderError
 from agents.nets import EnsembleLinear
-from agents.run_folder import POLICY, replace_folder_atomic, write_text_atomic
+from agents.policy_spec import ActorShape, actor_shape, bad, bounds, check_shape, check_task_id, mapping, read_spec
+from agents.run_folder import POLICY, replace_folder_atomic, write_bytes_atomic, write_text_atomic
 from agents.version import KILN_VERSION
 
 FORMAT = "kiln-policy"
@@ -38,10 +42,6 @@ SPEC = "spec.json"
 def _bounds_to_json(values: np.ndarray) -> list[float | str]:
     # JSON has no infinity; write it as a string that float() reads back.
     return [v if math.isfinite(v) else ("inf" if v > 0 else "-inf") for v in np.asarray(values, float).tolist()]
-
-
-def _bounds_from_json(values: list[float | str]) -> np.ndarray:
-    return np.array([float(v) for v in values], dtype=np.float64)
 
 
 @dataclass
@@ -146,18 +146,60 @@ def actor_tensors(actor: SquashedGaussianActor) -> dict[str, torch.Tensor]:
 
 
 def save_policy(folder: Path, actor: SquashedGaussianActor, spec: dict[str, Any]) -> Path:
-    """Write the policy folder atomically: into a temporary folder, then renamed into place."""
+    """Write the policy folder atomically: into a temporary folder, then renamed into place.
+
+    The folder and files get the user's usual permissions (umask), because a policy is meant to be
+    handed on. Temporary folders that earlier saves on this machine left behind (their process was
+    killed mid-save) are removed first.
+    """
     folder = Path(folder)
     folder.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{folder.name}-", dir=folder.parent))
+    remove_stale_temporaries(folder)
+    tmp = folder.with_name(f"{_temporary_prefix(folder)}{socket.gethostname()}-{os.getpid()}-{secrets.token_hex(4)}")
     try:
-        save_file(actor_tensors(actor), str(tmp / WEIGHTS), metadata={"format": FORMAT, "kiln_version": KILN_VERSION})
+        tmp.mkdir()  # not tempfile.mkdtemp: its folders are private (0700)
+        weights = save(actor_tensors(actor), metadata={"format": FORMAT, "kiln_version": KILN_VERSION})
+        write_bytes_atomic(tmp / WEIGHTS, weights)  # not save_file: it makes the file private (0600)
         write_text_atomic(tmp / SPEC, json.dumps(spec, indent=2, sort_keys=False))
         replace_folder_atomic(tmp, folder)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return folder
+
+
+def _temporary_prefix(folder: Path) -> str:
+    return f".{folder.name}-saving-"
+
+
+def remove_stale_temporaries(folder: Path) -> list[Path]:
+    """Remove the temporary folders of earlier saves of ``folder`` whose process is gone.
+
+    A temporary's name holds the host and process id of its writer; only those of this host whose
+    process no longer exists are removed (a live writer's, or another host's on a shared disk,
+    are left alone).
+
+    Returns:
+        The folders removed.
+    """
+    pattern = re.compile(re.escape(_temporary_prefix(folder)) + r"(?P<host>.+)-(?P<pid>\d+)-[0-9a-f]{8}")
+    removed = []
+    for candidate in folder.parent.iterdir():
+        match = pattern.fullmatch(candidate.name)
+        if match and match["host"] == socket.gethostname() and not _process_exists(int(match["pid"])):
+            shutil.rmtree(candidate, ignore_errors=True)
+            removed.append(candidate)
+    return removed
+
+
+def _process_exists(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)  # signal 0 only asks whether the process exists
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OverflowError):
+        return pid > 0  # another account's process exists; an absurd pid is left alone too
+    return True
 
 
 def resolve_policy_folder(path: Path) -> Path:
@@ -174,63 +216,94 @@ def resolve_policy_folder(path: Path) -> Path:
     )
 
 
+def _check_format(spec: dict[str, Any], path: Path) -> None:
+    if spec.get("format") != FORMAT:
+        raise PolicyFolderError(f"{path} is not a Kiln policy spec (format={str(spec.get('format'))[:40]!r})")
+    version = spec.get("format_version", 0)
+    if isinstance(version, bool) or not isinstance(version, int):
+        raise bad(path, f"format_version must be an integer, got {str(version)[:30]!r}")
+    if version > FORMAT_VERSION:
+        raise PolicyFolderError(
+            f"{path.parent} was saved in a policy format newer than this Kiln reads ({FORMAT_VERSION}): upgrade Kiln"
+        )
+    if version < FORMAT_VERSION:
+        raise PolicyFolderError(
+            f"{path.parent} was saved in policy format {version}, before the weight layout was recorded: "
+            f"retrain it, or load it with the Kiln version that saved it ({str(spec.get('kiln_version'))[:20]})"
+        )
+    block = mapping(spec.get("actor"), "actor", path)
+    architecture, revision = block.get("architecture"), block.get("architecture_version", 0)
+    if architecture != ARCHITECTURE or not isinstance(revision, int) or revision > ARCHITECTURE_VERSION:
+        raise PolicyFolderError(
+            f"{path} describes actor {str(architecture)[:40]!r} version {str(revision)[:20]}, "
+            "which this Kiln cannot rebuild: upgrade Kiln"
+        )
+
+
+def _check_weights_header(path: Path, shape: ActorShape) -> None:
+    """Compare the weights file's names, shapes and types with the spec from its header alone."""
+    if path.stat().st_size == 0:
+        raise bad(path, "the file is empty")
+    expected = shape.tensor_shapes()
+    try:
+        with safe_open(str(path), framework="pt") as file:
+            slices = {name: file.get_slice(name) for name in file.keys()}  # noqa: SIM118 (a safetensors file, not a dict)
+            found = {name: (tuple(part.get_shape()), part.get_dtype()) for name, part in slices.items()}
+    except (SafetensorError, OSError, ValueError) as err:
+        raise bad(path, f"cannot be read as safetensors ({str(err).splitlines()[0][:80]})") from None
+    if {name: dims for name, (dims, _) in found.items()} != expected:
+        raise bad(path, f"the file does not match the network in {SPEC}: the two files are from different policies")
+    wrong = sorted(name for name, (_, dtype) in found.items() if dtype != "F32")
+    if wrong:
+        raise bad(path, f"tensor {wrong[0]} is {found[wrong[0]][1]}, not float32 as Kiln saves")
+
+
 def load_policy(path: Path) -> SavedPolicy:
-    """Load a saved policy (never unpickles).
+    """Load a saved policy: nothing is unpickled, nothing named by the files is imported, and every
+    size is checked against caps and the weights file's header before the network is built.
 
     Args:
         path: A policy folder, or a run folder containing ``policy/``.
 
     Raises:
-        PolicyFolderError: If the folder is missing, incomplete or inconsistent.
+        PolicyFolderError: If the folder is missing, incomplete, inconsistent or its files are not
+            what they claim to be.
     """
     folder = resolve_policy_folder(path)
     for name in (SPEC, WEIGHTS):
         if not (folder / name).is_file():
             raise PolicyFolderError(f"policy folder {folder} is incomplete: {name} is missing (re-save or re-train the policy)")
+    spec_path, weights_path = folder / SPEC, folder / WEIGHTS
+    spec = read_spec(spec_path)
+    _check_format(spec, spec_path)
+    shape = actor_shape(spec["actor"], spec_path)
+    env = mapping(spec.get("env"), "env", spec_path)
+    check_task_id(env.get("id"), spec_path)
+    mapping(spec.get("config", {}), "config", spec_path)
+    observations = mapping(spec.get("observation_space"), "observation_space", spec_path)
+    check_shape(observations, shape.observation_size, "observation_space", spec_path)
+    for key in ("low", "high"):
+        bounds(observations, key, shape.observation_size, "observation_space", spec_path, infinite_ok=True)
+    actions = mapping(spec.get("action_space"), "action_space", spec_path)
+    check_shape(actions, shape.action_size, "action_space", spec_path)
+    low, high = (bounds(actions, key, shape.action_size, "action_space", spec_path, False) for key in ("low", "high"))
+    if np.any(low > high):
+        i = int(np.argmax(low > high))
+        raise bad(spec_path, f"action_space.low[{i}] = {low[i]} is above action_space.high[{i}] = {high[i]}")
+    _check_weights_header(weights_path, shape)
     try:
-        spec = json.loads((folder / SPEC).read_text())
-    except json.JSONDecodeError as err:
-        raise PolicyFolderError(f"{folder / SPEC} is not valid JSON ({err.msg}, line {err.lineno})") from None
-    if spec.get("format") != FORMAT:
-        raise PolicyFolderError(f"{folder / SPEC} is not a Kiln policy spec (format={spec.get('format')!r})")
-    version = spec.get("format_version", 0)
-    if version > FORMAT_VERSION:
-        raise PolicyFolderError(
-            f"{folder} was saved in policy format {version}, newer than this Kiln reads ({FORMAT_VERSION}): upgrade Kiln"
-        )
-    if version < FORMAT_VERSION:
-        raise PolicyFolderError(
-            f"{folder} was saved in policy format {version}, before the weight layout was recorded: "
-            f"retrain it, or load it with the Kiln version that saved it ({spec.get('kiln_version')})"
-        )
-    try:
-        block = spec["actor"]
-        if block.get("architecture") != ARCHITECTURE or int(block.get("architecture_version", 0)) > ARCHITECTURE_VERSION:
-            raise PolicyFolderError(
-                f"{folder / SPEC} describes actor {block.get('architecture')!r} version "
-                f"{block.get('architecture_version')}, which this Kiln cannot rebuild: upgrade Kiln"
-            )
-        actor = SquashedGaussianActor(
-            int(block["observation_size"]),
-            int(block["action_size"]),
-            [int(h) for h in block["layer_widths"]],
-            str(block["nonlinearity"]),
-            (float(block["log_std_soft_limits"][0]), float(block["log_std_soft_limits"][1])),
-        )
-        space = spec["action_space"]
-        scale = ActionScale(_bounds_from_json(space["low"]), _bounds_from_json(space["high"]))
-    except (KeyError, TypeError, ValueError, IndexError, AttributeError) as err:
-        raise PolicyFolderError(f"{folder / SPEC} is incomplete or malformed ({err!r}): re-save the policy") from None
-    try:
-        tensors = load_file(str(folder / WEIGHTS))
+        tensors = load_file(str(weights_path))
     except (SafetensorError, OSError) as err:
-        raise PolicyFolderError(f"{folder / WEIGHTS} cannot be read ({err}): re-save the policy") from None
-    expected = actor_tensors(actor)
-    if set(tensors) != set(expected) or any(tensors[k].shape != expected[k].shape for k in expected):
-        raise PolicyFolderError(f"{folder / WEIGHTS} does not match the network in {SPEC}: the two files are from different policies")
+        raise bad(weights_path, f"cannot be read as safetensors ({str(err).splitlines()[0][:80]})") from None
+    broken = sorted(name for name, tensor in tensors.items() if not bool(torch.isfinite(tensor).all()))
+    if broken:
+        raise bad(weights_path, f"tensor {broken[0]} holds NaN or infinite numbers, so the policy cannot act")
+    actor = SquashedGaussianActor(
+        shape.observation_size, shape.action_size, list(shape.layer_widths), shape.nonlinearity, shape.log_std_soft_limits
+    )
     with torch.no_grad():
         for i, layer in enumerate(_linear_layers(actor)):
             layer.weight.copy_(tensors[f"layers.{i}.weight"].unsqueeze(0))
             layer.bias.copy_(tensors[f"layers.{i}.bias"].reshape(1, 1, -1))
     actor.eval()
-    return SavedPolicy(actor=actor, scale=scale, spec=spec)
+    return SavedPolicy(actor=actor, scale=ActionScale(low, high), spec=spec)

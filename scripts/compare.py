@@ -15,9 +15,10 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
+from agents.compare.bootstrap import MAX_RESAMPLES
 from agents.compare.grouping import TARGET_ENTROPY_KEY
 from agents.compare.report import check_out_dir, default_out_dir, input_root, terminal_summary, write_report
-from agents.compare.runs import load_runs
+from agents.compare.runs import listed, load_runs, select_finished
 from agents.compare.summary import Comparison, summarise
 from kiln_cli._cli import OneLineParser, guarded
 
@@ -46,6 +47,9 @@ def _parser() -> OneLineParser:
                         help="two-sided confidence of every interval (default: %(default)s)")
     parser.add_argument("--resample-seed", type=int, default=0, metavar="S",
                         help="seed of the bootstrap random generator (default: %(default)s)")
+    parser.add_argument("--include-unfinished", action="store_true",
+                        help="also compare runs without result.json (still training or killed), marked "
+                             "unfinished; by default they are left out with a note naming them")
     return parser
 
 
@@ -53,12 +57,10 @@ def _compare(args: argparse.Namespace, out_dir: Path) -> Comparison:
     """Load, summarise and write the report; input problems raise CompareInputError (a KilnError)."""
     check_out_dir(out_dir)
     skipped: list[Path] = []
-    runs = load_runs(args.paths, skipped)
-    notes = []
+    runs, notes = select_finished(load_runs(args.paths, skipped), args.include_unfinished)
     if skipped:
-        listed = ", ".join(str(path) for path in skipped[:3]) + (" and more" if len(skipped) > 3 else "")
         notes.append(f"skipped {len(skipped)} folder(s) with config.yaml but no event files or "
-                     f"result.json yet: {listed}")
+                     f"result.json yet: {listed(skipped)}")
     comparison = summarise(
         runs,
         group_by=args.group_by,
@@ -86,6 +88,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if args.resamples < 1:
         parser.error("--resamples must be at least 1")
+    if args.resamples > MAX_RESAMPLES:
+        parser.error(f"--resamples {args.resamples} is above the cap of {MAX_RESAMPLES}: each interval keeps "
+                     "resamples x runs random indices in memory; 2000 (the default) is the usual choice")
     if not 0.0 < args.confidence < 1.0:
         parser.error("--confidence must lie strictly between 0 and 1, e.g. 0.95")
     if args.step is not None and args.step < 0:

@@ -9,6 +9,8 @@ Caution: a policy trained in simulation is not safe to run on physical equipment
 from __future__ import annotations
 
 import sys
+from contextlib import nullcontext
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -16,17 +18,30 @@ import hydra
 from omegaconf import DictConfig, OmegaConf
 
 from agents import checks
-from agents.errors import ConfigError, KilnError
-from agents.policy_eval import EvaluationPlan, evaluate_policy, plan_evaluation
-from agents.policy_io import load_policy, resolve_policy_folder
+from agents.errors import ConfigError
+from agents.policy_eval import EvaluationPlan, check_task_module, evaluate_policy, plan_evaluation
+from agents.policy_io import SavedPolicy, load_policy, resolve_policy_folder
 from agents.run_folder import POLICY, RunFolder, write_json_atomic
 from agents.streams import LARGEST_EPISODES, LARGEST_SEED
 from agents.presets import CONFIG_DIR
-from kiln_cli._cli import check_overrides, guarded, stop_politely_on_sigterm, plural
+from agents.writable import check_writable, kept_only_if_complete
+from kiln_cli._cli import check_overrides, guarded, plural, stop_politely_on_sigterm
 
 
-def check_evaluate_config(raw: dict[str, Any]) -> None:
-    """Check values and that the policy folder loads, before anything runs."""
+@dataclass(frozen=True)
+class Job:
+    """One evaluation, checked: the policy, its episodes and where the results go."""
+
+    folder: Path
+    policy: SavedPolicy
+    plan: EvaluationPlan
+    mode: str
+    out: Path
+    video_dir: Path | None
+
+
+def prepare(raw: dict[str, Any]) -> Job:
+    """Check the values, load the policy and plan the episodes; nothing is run or written."""
     if raw.get("policy") in (None, "???", ""):
         raise ConfigError("no policy given: kiln evaluate policy=<run folder or policy folder>")
     checks.boolean(raw["deterministic"], "deterministic")
@@ -36,7 +51,32 @@ def check_evaluate_config(raw: dict[str, Any]) -> None:
         checks.integer(raw["episodes"], "episodes", 1, LARGEST_EPISODES)
     if raw["seed"] is not None:
         checks.integer(raw["seed"], "seed", 0, LARGEST_SEED)
-    plan_evaluation(load_policy(Path(raw["policy"])), raw["episodes"], raw["seed"])
+    folder = resolve_policy_folder(Path(raw["policy"]))
+    policy = load_policy(folder)
+    check_task_module(policy.spec["env"]["id"], raw.get("task_module"))
+    plan = plan_evaluation(policy, raw["episodes"], raw["seed"])
+    mode = "deterministic" if raw["deterministic"] else "stochastic"
+    run_folder = RunFolder(folder.parent if folder.name == POLICY else folder)
+    out = Path(raw["out"]) if raw.get("out") else run_folder.evaluation_path(mode, plan.reset_seeds)
+    if out.is_dir():
+        raise ConfigError(f"out={out} is a folder: give a file name such as out={out / 'evaluation.json'}")
+    return Job(folder, policy, plan, mode, out, out.with_suffix("") if raw["video"] else None)
+
+
+def check_outputs(job: Job) -> None:
+    """Refuse output folders that cannot be written, before any episode runs."""
+    check_writable(job.out.parent, _OUT_FIX)
+    if job.video_dir is not None:
+        check_writable(job.video_dir, _VIDEO_FIX)
+
+
+_OUT_FIX = "pass out=<path> in a folder you can write to"
+_VIDEO_FIX = "pass out=<path> in a folder you can write to (videos go beside it), or drop video"
+
+
+def check_evaluate_config(raw: dict[str, Any]) -> None:
+    """Check values, that the policy folder loads and that the outputs can be written, before anything runs."""
+    check_outputs(prepare(raw))
 
 
 def episodes_line(mode: str, plan: EvaluationPlan) -> str:
@@ -57,35 +97,29 @@ def table(summary: dict[str, float]) -> str:
 
 
 def run(raw: dict[str, Any]) -> Path:
-    """Evaluate and write the JSON; returns its path."""
-    folder = resolve_policy_folder(Path(raw["policy"]))
-    policy = load_policy(folder)
-    mode = "deterministic" if raw["deterministic"] else "stochastic"
-    plan = plan_evaluation(policy, raw["episodes"], raw["seed"])
-    run_folder = RunFolder(folder.parent if folder.name == POLICY else folder)
-    out = Path(raw["out"]) if raw.get("out") else run_folder.evaluation_path(mode, plan.reset_seeds)
-    video_dir = out.with_suffix("") if raw["video"] else None
-    result = evaluate_policy(policy, plan, raw["deterministic"], video_dir)
-    spec = policy.spec
-    record = {
-        "policy": str(folder.resolve()),
-        "env_id": spec["env"]["id"],
-        "kiln_version": spec.get("kiln_version"),
-        "mode": mode,
-        "seeds": plan.reset_seeds,
-        "sampling_seed": plan.sampling_seed,
-        **result,
-    }
-    try:
-        out.parent.mkdir(parents=True, exist_ok=True)
+    """Evaluate and write the JSON; returns its path. A failed write leaves no part of it behind."""
+    job = prepare(raw)
+    check_outputs(job)
+    out, spec = job.out, job.policy.spec
+    with kept_only_if_complete(out.parent, f"the evaluation record {out.name}", _OUT_FIX):
+        videos = job.video_dir and kept_only_if_complete(job.video_dir, "the videos", _VIDEO_FIX, sole_writer=True)
+        with videos or nullcontext():
+            result = evaluate_policy(job.policy, job.plan, raw["deterministic"], job.video_dir, raw.get("task_module"))
+        record = {
+            "policy": str(job.folder.resolve()),
+            "env_id": spec["env"]["id"],
+            "kiln_version": spec.get("kiln_version"),
+            "mode": job.mode,
+            "seeds": job.plan.reset_seeds,
+            "sampling_seed": job.plan.sampling_seed,
+            **result,
+        }
         write_json_atomic(out, record)
-    except OSError as err:
-        raise KilnError(f"cannot write {out} ({err.strerror}): choose another out=<path>") from None
-    trained = spec.get("config", {}).get("steps")
-    print(f"policy   {folder}  ({spec['env']['id']}, {trained} training steps, Kiln {spec.get('kiln_version')})")
-    print(f"mode     {episodes_line(mode, plan)}")
+    trained = (spec.get("config") or {}).get("steps")
+    print(f"policy   {job.folder}  ({spec['env']['id']}, {trained} training steps, Kiln {spec.get('kiln_version')})")
+    print(f"mode     {episodes_line(job.mode, job.plan)}")
     print(table(result["summary"]))
-    print(f"wrote    {out}" + (f"\nvideos   {video_dir}" if video_dir else ""))
+    print(f"wrote    {out}" + (f"\nvideos   {job.video_dir}" if job.video_dir else ""))
     return out
 
 

@@ -4,7 +4,7 @@
     python scripts/verify.py --quick         # solver checks only (seconds)
     python scripts/verify.py --seed 3 --out verify.json
 
-Exit codes: 0 all checks passed, 1 a check failed, 2 bad arguments.
+Exit codes: 0 all checks passed, 1 a check failed, 2 bad arguments or --out cannot be written.
 """
 
 from __future__ import annotations
@@ -15,7 +15,11 @@ import sys
 from pathlib import Path
 
 from agents.presets import PRESETS_ENV
-from kiln_cli._cli import OneLineParser, fail
+from agents.run_folder import write_text_atomic
+from agents.writable import check_writable, reason
+from kiln_cli._cli import OneLineParser, fail, guarded
+
+_OUT_FIX = "pass --out with a file in a folder you can write to"
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -32,6 +36,9 @@ def main(argv: list[str] | None = None) -> int:
         fail(f"--out {args.out}: folder {args.out.parent} does not exist; create it or pick another path")
     if args.out is not None and args.out.is_dir():
         fail(f"--out {args.out} is a folder; give a file name such as {args.out / 'verify.json'}")
+    if args.out is not None:
+        # Exit 2 now, not after minutes of checks, and not with 1, which means that a check failed.
+        guarded(lambda: check_writable(args.out.parent, _OUT_FIX))
 
     # The checks compare Kiln's own task presets with their exact answers; a user preset of the same
     # name would change the task under test, so user preset folders are not searched here.
@@ -41,7 +48,10 @@ def main(argv: list[str] | None = None) -> int:
     report = run_verify(args.quick, args.seed, say=lambda line: print(line, flush=True))
     print(format_table(report), flush=True)
     if args.out is not None:
-        args.out.write_text(json.dumps(report_json(report, args.quick, args.seed), indent=2, ensure_ascii=False))
+        try:  # atomic: a failed write leaves no half file, and an earlier table whole
+            write_text_atomic(args.out, json.dumps(report_json(report, args.quick, args.seed), indent=2, ensure_ascii=False))
+        except OSError as err:
+            fail(f"cannot write {args.out} ({reason(err)}): {_OUT_FIX}; the table above is complete")
         print(f"wrote {args.out}")
     return 0 if report.passed else 1
 

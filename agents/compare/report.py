@@ -13,6 +13,7 @@ from agents.compare.summary import Comparison, GroupSummary
 from agents.compare.tables import NO_CI, markdown_table, text_table
 from agents.compare.writing import write_csv, write_json
 from agents.run_folder import write_text_atomic
+from agents.writable import check_writable, kept_only_if_complete
 
 REPORT_FOLDER = "report"
 
@@ -27,6 +28,8 @@ CURVES_PNG = "learning_curves.png"
 ENTROPY_PNG = "entropy_alpha.png"
 PROFILE_PNG = "performance_profile.png"
 FINAL_PNG = "final_scores.png"
+
+_OUT_FIX = "pass --out with a folder you can write to"
 
 
 def input_root(paths: Sequence[Path]) -> Path:
@@ -65,16 +68,18 @@ def _shown(path: Path, root: Path | None) -> str:
 
 
 def check_out_dir(out_dir: Path) -> None:
-    """Refuses a report folder that cannot be one, before any work is done.
+    """Refuses a report folder that cannot be one, or cannot be written, before any work is done.
 
     Args:
         out_dir: The intended report folder.
 
     Raises:
         CompareInputError: If ``out_dir`` exists and is not a directory.
+        KilnError: If no file can be written there (the folder is left as it was).
     """
     if out_dir.exists() and not out_dir.is_dir():
         raise CompareInputError(f"{out_dir} exists and is not a directory", "pass --out with a folder path")
+    check_writable(out_dir, _OUT_FIX)
 
 
 def _describe_grouping(comparison: Comparison) -> str:
@@ -188,7 +193,7 @@ def _numbers(comparison: Comparison, root: Path | None) -> dict[str, Any]:
             {
                 "run": _shown(row.path, root), "group": row.group, "seed": row.seed, "step": row.logged_step,
                 "score": row.score, "entropy_nats": row.entropy, "alpha": row.alpha,
-                "target_entropy": row.target_entropy,
+                "target_entropy": row.target_entropy, "finished": row.finished,
             }
             for row in comparison.runs
         ],
@@ -242,7 +247,8 @@ def _markdown(comparison: Comparison, root: Path | None) -> str:
         "|---|---|---|---|---|---|---|",
     ]
     for row in comparison.runs:
-        lines.append(f"| {_shown(row.path, root)} | {row.group} | {row.seed} | {row.logged_step:,} | "
+        mark = "" if row.finished else " (unfinished)"
+        lines.append(f"| {_shown(row.path, root)}{mark} | {row.group} | {row.seed} | {row.logged_step:,} | "
                      f"{row.score:.6g} | {row.entropy:.4g} | {row.alpha:.4g} |")
     lines += [
         "", "## Files", "",
@@ -266,15 +272,17 @@ def write_report(comparison: Comparison, out_dir: Path, runs_root: Path | None =
         The files written.
 
     Raises:
-        CompareInputError: If ``out_dir`` exists as a file or cannot be written.
+        CompareInputError: If ``out_dir`` exists as a file.
+        KilnError: If a file cannot be written (a folder this call created is removed again).
     """
     from agents.compare import (
         plots,  # matplotlib is slow to import; only a written report needs it
     )
 
     check_out_dir(out_dir)
-    try:
-        out_dir.mkdir(parents=True, exist_ok=True)
+    # A report folder this call created goes again if a write fails; files of an earlier report stay
+    # whole (each write is atomic), and the markdown that ties them together is written last.
+    with kept_only_if_complete(out_dir, "the report", _OUT_FIX):
         written = []
 
         def target(name: str) -> Path:
@@ -284,9 +292,9 @@ def write_report(comparison: Comparison, out_dir: Path, runs_root: Path | None =
         write_csv(target(GROUPS_CSV), _GROUP_HEADER, _group_rows(comparison))
         write_csv(
             target(RUNS_CSV),
-            ["run", "group", "seed", "step", "score", "entropy_nats", "alpha", "target_entropy"],
+            ["run", "group", "seed", "step", "score", "entropy_nats", "alpha", "target_entropy", "finished"],
             [[_shown(row.path, runs_root), row.group, row.seed, row.logged_step, row.score, row.entropy,
-              row.alpha, row.target_entropy] for row in comparison.runs],
+              row.alpha, row.target_entropy, row.finished] for row in comparison.runs],
         )
         write_csv(
             target(CURVES_CSV),
@@ -311,9 +319,4 @@ def write_report(comparison: Comparison, out_dir: Path, runs_root: Path | None =
         plots.save_png(plots.final_scores(comparison), target(FINAL_PNG))
         # The markdown goes last so that it never points at figures that were not written.
         write_text_atomic(target(MARKDOWN), _markdown(comparison, runs_root))
-    except OSError as error:
-        raise CompareInputError(
-            f"cannot write the report to {out_dir} ({error.strerror or type(error).__name__})",
-            "pass --out with a folder you can write to",
-        ) from error
     return written

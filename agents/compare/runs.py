@@ -49,6 +49,11 @@ class Run:
         return None
 
     @property
+    def finished(self) -> bool:
+        """Whether the run wrote result.json (the training loop writes it last)."""
+        return self.result is not None
+
+    @property
     def seed(self) -> Any:
         """The run's seed from its config, or None."""
         return self.config.get("seed")
@@ -246,3 +251,41 @@ def load_runs(paths: Sequence[Path], skipped: list[Path] | None = None) -> list[
         CompareInputError: See :func:`find_run_dirs` and :func:`load_run`.
     """
     return [load_run(path) for path in find_run_dirs(paths, skipped)]
+
+
+def listed(paths: Sequence[Path], shown: int = 3) -> str:
+    """The first few paths, comma-separated, and ``and N more`` for the rest: one readable line."""
+    rest = len(paths) - shown
+    return ", ".join(str(path) for path in paths[:shown]) + (f" and {rest} more" if rest > 0 else "")
+
+
+def select_finished(runs: Sequence[Run], include_unfinished: bool) -> tuple[list[Run], list[str]]:
+    """Leave out runs without result.json (still training, or killed), unless asked to keep them.
+
+    A run that has not finished stops at some step of its own, so its numbers are not those of a
+    finished run; it is compared only on request and then marked.
+
+    Args:
+        runs: The loaded runs.
+        include_unfinished: Keep unfinished runs (they are marked in the report).
+
+    Returns:
+        The runs to compare, and a note naming the unfinished ones (empty if there are none).
+
+    Raises:
+        CompareInputError: If every run is unfinished and they are not to be included.
+    """
+    unfinished = [run.path for run in runs if not run.finished]
+    if not unfinished:
+        return list(runs), []
+    if include_unfinished:
+        note = f"included {len(unfinished)} unfinished run(s) (no result.json yet), marked unfinished in the run table: "
+        return list(runs), [note + listed(unfinished)]
+    finished = [run for run in runs if run.finished]
+    if not finished:
+        raise CompareInputError(
+            f"every run found is unfinished (no result.json yet): {listed(unfinished)}",
+            "wait until they finish, or pass --include-unfinished to compare them as they stand",
+        )
+    note = f"left out {len(unfinished)} unfinished run(s) (no result.json yet): {listed(unfinished)}"
+    return finished, [note + "; pass --include-unfinished to include them"]

@@ -77,6 +77,7 @@ class RunRow:
         entropy: Policy entropy (nats) at the step, NaN if not logged.
         alpha: Temperature α at the step, NaN if not logged.
         target_entropy: Resolved target entropy, None if unknown.
+        finished: Whether the run wrote result.json (unfinished runs are compared only on request).
     """
 
     path: Path
@@ -87,6 +88,7 @@ class RunRow:
     entropy: float
     alpha: float
     target_entropy: Hashable | None
+    finished: bool = True
 
 
 @dataclass(frozen=True)
@@ -339,6 +341,7 @@ def summarise(
                     entropy=_value_at(run, ENTROPY_TAG, chosen),
                     alpha=_value_at(run, ALPHA_TAG, chosen),
                     target_entropy=resolved_target_entropy(run),
+                    finished=run.finished,
                 )
             )
 

@@ -27,14 +27,18 @@ def write_run(
     config: Mapping[str, Any],
     scalars: Mapping[str, Sequence[tuple[int, float]]],
     result: Mapping[str, Any] | None = None,
+    *,
+    finished: bool = True,
 ) -> Path:
-    """Writes config.yaml, an event file holding ``scalars`` and, if given, result.json.
+    """Writes config.yaml, an event file holding ``scalars`` and result.json.
 
     Args:
         directory: The run directory (created).
         config: Plain config data.
         scalars: Tag → (step, value) pairs.
-        result: Contents of result.json, or None for an unfinished run.
+        result: Contents of result.json; None writes a minimal one (task and steps only, so the
+            numbers come from the event files).
+        finished: False writes no result.json: a run still training, or one that was killed.
 
     Returns:
         ``directory``.
@@ -47,8 +51,11 @@ def write_run(
             for step, value in pairs:
                 writer.add_scalar(tag, value, step)
         writer.close()
-    if result is not None:
-        (directory / "result.json").write_text(json.dumps(dict(result)), encoding="utf-8")
+    if result is None and finished:
+        steps = max((step for pairs in scalars.values() for step, _ in pairs), default=0)
+        result = {"env_id": dict(config).get("env", {}).get("id"), "steps": steps}
+    if finished:
+        (directory / "result.json").write_text(json.dumps(dict(result or {})), encoding="utf-8")
     return directory
 
 

@@ -4,16 +4,21 @@ import os
 import shutil
 import subprocess
 import sys
+from collections.abc import Callable
 from pathlib import Path
 
 REPO = Path(__file__).resolve().parents[2]
 
 
-def run_script(name: str, *args: str, cwd: Path, timeout: float = 600, env: dict | None = None) -> subprocess.CompletedProcess:
+def run_script(
+    name: str, *args: str, cwd: Path, timeout: float = 600, env: dict | None = None,
+    preexec_fn: Callable[[], None] | None = None,
+) -> subprocess.CompletedProcess:
+    """Run ``scripts/<name>.py``; ``preexec_fn`` runs in the child first (limits, dropped permissions)."""
     env = dict(os.environ, PYTHONUNBUFFERED="1", **(env or {}))
     return subprocess.run(
         [sys.executable, str(REPO / "scripts" / f"{name}.py"), *args],
-        cwd=cwd, env=env, capture_output=True, text=True, timeout=timeout,
+        cwd=cwd, env=env, capture_output=True, text=True, timeout=timeout, preexec_fn=preexec_fn,
     )  # fmt: skip
 
 
@@ -24,10 +29,15 @@ def kiln_command() -> list[str]:
     return [installed] if installed else [sys.executable, "-m", "kiln_cli.command"]
 
 
-def run_kiln(*args: str, cwd: Path, timeout: float = 600, env: dict | None = None) -> subprocess.CompletedProcess:
+def run_kiln(
+    *args: str, cwd: Path, timeout: float = 600, env: dict | None = None,
+    preexec_fn: Callable[[], None] | None = None,
+) -> subprocess.CompletedProcess:
+    """Run the ``kiln`` command; ``preexec_fn`` as for :func:`run_script`."""
     env = dict(os.environ, PYTHONUNBUFFERED="1", **(env or {}))
     return subprocess.run(
         [*kiln_command(), *args], cwd=cwd, env=env, capture_output=True, text=True, timeout=timeout,
+        preexec_fn=preexec_fn,
     )  # fmt: skip
 
 
