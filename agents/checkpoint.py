@@ -146,9 +146,13 @@ class CheckpointStore:
         staging = self.folder / f"{_PARTIAL_PREFIX}{step:012d}-{os.getpid()}"
         shutil.rmtree(staging, ignore_errors=True)
         staging.mkdir()
-        _write_file(staging / STATE, save({k: v.detach().contiguous() for k, v in tensors.items()}))
-        _write_file(staging / MANIFEST, json.dumps(manifest, indent=1, allow_nan=False).encode())
-        fsync_folder(staging)
+        try:
+            _write_file(staging / STATE, save({k: v.detach().contiguous() for k, v in tensors.items()}))
+            _write_file(staging / MANIFEST, json.dumps(manifest, indent=1, allow_nan=False).encode())
+            fsync_folder(staging)
+        except BaseException:
+            shutil.rmtree(staging, ignore_errors=True)  # a failed write (disk full) leaves no partial folder
+            raise
         final = self.folder / f"{_STEP_PREFIX}{step:012d}"
         if final.exists():  # the same step written by an earlier attempt: replace it whole
             shutil.rmtree(final)

@@ -35,6 +35,7 @@ from agents.sac import SoftActorCritic
 from agents.settings import resolve_target_entropy
 from agents.stop import StopRequest
 from agents.streams import RunStreams
+from agents.writable import reason
 from envs.make import make_env
 from envs.task_spec import TaskSpec
 
@@ -346,6 +347,13 @@ def _check_finished_config(folder: RunFolder, raw: Mapping[str, Any]) -> None:
         )
 
 
+def _write_failure(err: OSError, folder: RunFolder, checkpoint: Path | None) -> RunFolderError:
+    """One line for a file the run could not write (disk full, file-size limit, permissions)."""
+    where = err.filename or folder.path
+    kept = f"resume from {checkpoint} by running the same command again" if checkpoint else "run the command again"
+    return RunFolderError(f"cannot write {where} ({reason(err)}): free some space or raise the limit, then {kept}")
+
+
 def train(raw_config: Mapping[str, Any], run_dir: Path, stop: StopRequest | None = None) -> RunResult:
     """Run one training run into ``run_dir`` and return its result (also saved as ``result.json``).
 
@@ -391,7 +399,10 @@ def train(raw_config: Mapping[str, Any], run_dir: Path, stop: StopRequest | None
             else:
                 folder.prepare(cfg.raw)
             with stop or StopRequest() as request:
-                return loop.run(request)
+                try:
+                    return loop.run(request)
+                except OSError as err:
+                    raise _write_failure(err, folder, loop.last_checkpoint) from None
         finally:
             env.close()
             if eval_env is not None:

@@ -20,7 +20,25 @@ from omegaconf import DictConfig, OmegaConf
 from agents.presets import CONFIG_DIR
 from agents.run_folder import RunFolder, RunResult
 from agents.trainer import check_run, train
-from kiln_cli._cli import check_overrides, guarded, stop_politely_on_sigterm
+from agents.presets import compose_node
+from agents.writable import check_writable
+from kiln_cli._cli import check_overrides, expand_overrides, guarded, stop_politely_on_sigterm
+
+
+def check_output_folder(args: list[str]) -> None:
+    """Refuse a run (or sweep) folder that cannot be created or written, before Hydra makes it.
+
+    Raises:
+        KilnError: One line naming the folder and the cause.
+    """
+    if any(a in ("--help", "-h", "--hydra-help", "--info") or a.startswith("--cfg") or a == "-c" for a in args):
+        return
+    plain = [a for a in args if not a.startswith("-")]
+    overrides = expand_overrides(plain)[0]
+    hydra_node = compose_node("train", overrides, with_hydra=True).hydra
+    sweeping = "-m" in args or "--multirun" in args or str(hydra_node.mode) == "RunMode.MULTIRUN"
+    folder = Path(str(hydra_node.sweep.dir if sweeping else hydra_node.run.dir))
+    check_writable(folder, "choose a writable place, e.g. hydra.run.dir=<folder> (hydra.sweep.dir= for a sweep)")
 
 
 def report(run_dir: Path, result: RunResult) -> None:
@@ -58,7 +76,7 @@ def main() -> None:
     """Check the command line, then hand it to Hydra."""
     stop_politely_on_sigterm()
     register_slurm_launcher()  # launcher=slurm; an editable install hides it from Hydra's plugin scan
-    guarded(lambda: (check_overrides("train", sys.argv[1:], check_run), _hydra_entry()))
+    guarded(lambda: (check_overrides("train", sys.argv[1:], check_run), check_output_folder(sys.argv[1:]), _hydra_entry()))
 
 
 if __name__ == "__main__":

@@ -106,8 +106,12 @@ def test_own_task_and_presets_train_and_evaluate_from_the_users_folder(user_fold
     assert result["env_id"] == "point_task:PointMass-v0" and result["steps"] == 300
     assert {p.name for p in (run / "policy").iterdir()} >= {"spec.json", "weights.safetensors"}
     assert "1 deterministic episode of point_task:PointMass-v0 after 300 steps" in proc.stdout
-    # Evaluation needs the user's module too (the saved policy names the module-qualified id).
-    evaluated = run_kiln("evaluate", f"policy={run.relative_to(user_folder)}", "episodes=1", "seed=0", cwd=user_folder,
+    # Evaluation imports the user's module only when asked to on the command line (a policy folder
+    # alone must never make Kiln import code): without task_module it refuses with one line.
+    policy = f"policy={run.relative_to(user_folder)}"
+    refused = run_kiln("evaluate", policy, "episodes=1", "seed=0", cwd=user_folder, timeout=300)
+    assert refused.returncode == 2 and "task_module=point_task" in refused.stderr
+    evaluated = run_kiln("evaluate", policy, "episodes=1", "seed=0", "task_module=point_task", cwd=user_folder,
                          timeout=300)  # fmt: skip
     assert evaluated.returncode == 0, evaluated.stderr
     assert "deterministic, 1 episode, reset seed 0" in evaluated.stdout

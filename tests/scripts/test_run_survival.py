@@ -18,7 +18,9 @@ import pytest
 from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
 
 from agents.run_folder import RunFolder
+from tests.pickle_bomb import pickle_bomb, torch_bomb
 from tests.scripts.cli import REPO, TINY_RUN, assert_one_line_error, run_script
+from tests.scripts.restricted import NO_BYTECODE, restricted
 
 LONG_RUN = (*TINY_RUN[:-1], "steps=20000", "agent.replay_capacity=20000", "evaluate.every=1000",
             "log.every=100", "checkpoint.every=500", "log.progress=off")  # fmt: skip
@@ -131,14 +133,29 @@ def test_checkpoint_of_another_config_is_refused_and_nothing_changes(stopped_run
     assert _snapshot(stopped_run) == before
 
 
-@pytest.mark.parametrize("damage", ["zero-byte state", "truncated replay", "manifest not JSON", "manifest of another kind"])
+DAMAGES = [
+    "zero-byte state", "truncated replay", "manifest not JSON", "manifest of another kind",
+    "pickle as state", "torch pickle as state", "pickle as replay chunk", "pickle as manifest",
+]  # fmt: skip
+
+
+@pytest.mark.parametrize("damage", DAMAGES)
 def test_damaged_checkpoint_is_refused_with_one_line(stopped_run, tmp_path, damage):
     newest = sorted((stopped_run / "checkpoints").glob("step-*"))[-1]
-    if damage == "zero-byte state":
+    chunk_name = next(iter(json.loads((newest / "manifest.json").read_text())["replay"]["chunks"].values()))
+    marker = tmp_path / "unpickled"  # created only if something unpickles a crafted file
+    if damage == "pickle as state":
+        (newest / "state.safetensors").write_bytes(pickle_bomb(marker))
+    elif damage == "torch pickle as state":
+        (newest / "state.safetensors").write_bytes(torch_bomb(marker))
+    elif damage == "pickle as replay chunk":
+        (stopped_run / "checkpoints" / "replay" / chunk_name).write_bytes(pickle_bomb(marker))
+    elif damage == "pickle as manifest":
+        (newest / "manifest.json").write_bytes(pickle_bomb(marker))
+    elif damage == "zero-byte state":
         (newest / "state.safetensors").write_bytes(b"")
     elif damage == "truncated replay":
-        name = next(iter(json.loads((newest / "manifest.json").read_text())["replay"]["chunks"].values()))
-        chunk = stopped_run / "checkpoints" / "replay" / name
+        chunk = stopped_run / "checkpoints" / "replay" / chunk_name
         chunk.write_bytes(chunk.read_bytes()[:100])
     elif damage == "manifest not JSON":
         (newest / "manifest.json").write_bytes(b"\xff\xfe not json")
@@ -148,6 +165,7 @@ def test_damaged_checkpoint_is_refused_with_one_line(stopped_run, tmp_path, dama
     proc = run_script("train", *LONG_RUN, f"hydra.run.dir={stopped_run}", cwd=tmp_path, timeout=120)
     assert_one_line_error(proc, "resume=false")
     assert _snapshot(stopped_run) == before
+    assert not marker.exists()
 
 
 def test_divergence_from_the_command_line_exits_3_with_one_line_and_no_policy(tmp_path):
@@ -172,3 +190,27 @@ def test_two_runs_launched_together_get_their_own_folders(tmp_path):
         assert proc.returncode == 0, err
     runs = sorted((tmp_path / "runs" / "pendulum").iterdir())
     assert len(runs) == 2 and all((run / "result.json").is_file() for run in runs)
+
+
+def test_file_size_limit_hit_while_training_gives_one_line_and_no_partial_files(tmp_path):
+    # A small RLIMIT_FSIZE (setrlimit(2)) plays a full disk: some write of the run fails with EFBIG.
+    run_dir = tmp_path / "run"
+    proc = run_script("train", *SHORT_RUN, f"hydra.run.dir={run_dir}", cwd=tmp_path, timeout=300,
+                      env=NO_BYTECODE, preexec_fn=restricted(file_size=40_000))  # fmt: skip
+    line = assert_one_line_error(proc, "cannot write", "free some space or raise the limit")
+    assert "file-size limit" in line
+    leftovers = [p.name for p in run_dir.rglob("*") if ".partial" in p.name or p.name.startswith(".policy-")]
+    assert leftovers == []
+    assert not (run_dir / "result.json").exists()
+
+
+def test_run_folder_that_cannot_be_created_gives_one_line(tmp_path):
+    locked = tmp_path / "locked"
+    locked.mkdir(mode=0o555)
+    proc = run_script("train", *SHORT_RUN, f"hydra.run.dir={locked / 'run'}", cwd=tmp_path, timeout=120,
+                      preexec_fn=restricted())  # fmt: skip
+    assert_one_line_error(proc, f"cannot write to {locked / 'run'}", "permission denied", "hydra.run.dir")
+    long_name = tmp_path / ("x" * 300)
+    proc = run_script("train", *SHORT_RUN, f"hydra.run.dir={long_name}", cwd=tmp_path, timeout=120)
+    assert_one_line_error(proc, "file name too long", "hydra.run.dir")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["locked"]
