@@ -193,10 +193,11 @@ def test_two_runs_launched_together_get_their_own_folders(tmp_path):
 
 
 def test_file_size_limit_hit_while_training_gives_one_line_and_no_partial_files(tmp_path):
-    # A small RLIMIT_FSIZE (setrlimit(2)) plays a full disk: some write of the run fails with EFBIG.
+    # A small RLIMIT_FSIZE (setrlimit(2)) plays a full disk: the first replay chunk (300 rows × 9
+    # float32 = 10.8 kB) is over 8 kB, so the first checkpoint fails with EFBIG mid-run.
     run_dir = tmp_path / "run"
     proc = run_script("train", *SHORT_RUN, f"hydra.run.dir={run_dir}", cwd=tmp_path, timeout=300,
-                      env=NO_BYTECODE, preexec_fn=restricted(file_size=40_000))  # fmt: skip
+                      env=NO_BYTECODE, preexec_fn=restricted(file_size=8_000))  # fmt: skip
     line = assert_one_line_error(proc, "cannot write", "free some space or raise the limit")
     assert "file-size limit" in line
     leftovers = [p.name for p in run_dir.rglob("*") if ".partial" in p.name or p.name.startswith(".policy-")]
