@@ -41,9 +41,12 @@ class RunStopped(KilnError):
 
     prefix = "stopped"
 
-    def __init__(self, message: str, exit_code: int) -> None:
+    def __init__(self, message: str, exit_code: int, orphaned: bool = False) -> None:
         super().__init__(message)
         self.exit_code = exit_code
+        # The launching process is gone: a pool worker must end its whole process, not wait idle
+        # for tasks that will never come.
+        self.orphaned = orphaned
 
 
 class DivergenceError(KilnError):

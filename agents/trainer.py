@@ -284,6 +284,7 @@ class TrainingLoop:
                         f"{stop.reason} at env step {self.step} of {r.steps}; checkpoint written to "
                         f"{self.last_checkpoint}; run the same command again to resume",
                         stop.exit_code,
+                        orphaned=stop.reason == "parent gone",
                     )
             self._check_weights()
             env_record = TaskSpec(cfg.env.id, cfg.env.kwargs, self.eval_env.spec.max_episode_steps).to_record()

@@ -8,6 +8,7 @@ a typo ends with one line, exit code 2, and no folder written.
 from __future__ import annotations
 
 import argparse
+import os
 import signal
 import sys
 from collections.abc import Callable
@@ -38,6 +39,9 @@ def guarded(fn: Callable[[], T]) -> T:
     try:
         return fn()
     except USER_ERRORS as err:
+        if getattr(err, "orphaned", False):
+            print(f"kiln: stopped: {err}", file=sys.stderr, flush=True)
+            os._exit(err.exit_code)  # no launcher left to report to: end the worker process itself
         fail(str(err), getattr(err, "exit_code", EXIT_BAD_INPUT), getattr(err, "prefix", "error"))
     except KeyboardInterrupt:
         # Ctrl-C outside the training loop (which checkpoints first and stops on its own).

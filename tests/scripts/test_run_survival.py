@@ -215,3 +215,52 @@ def test_run_folder_that_cannot_be_created_gives_one_line(tmp_path):
     proc = run_script("train", *SHORT_RUN, f"hydra.run.dir={long_name}", cwd=tmp_path, timeout=120)
     assert_one_line_error(proc, "file name too long", "hydra.run.dir")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["locked"]
+
+
+def _children(pid: int) -> list[int]:
+    found = []
+    for entry in Path("/proc").iterdir():
+        if entry.name.isdigit():
+            try:
+                if int((entry / "stat").read_text().rsplit(")", 1)[1].split()[1]) == pid:
+                    found.append(int(entry.name))
+            except (OSError, IndexError, ValueError):
+                continue
+    return found
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = (Path("/proc") / str(pid) / "stat").read_text().rsplit(")", 1)[1].split()[0]
+    except OSError:
+        return False
+    return state != "Z"
+
+
+def test_sweep_workers_checkpoint_and_end_when_their_launcher_is_killed(tmp_path):
+    # What a hostile user found: killing a sweep's launcher left its workers training unattended.
+    sweep = tmp_path / "sweep"
+    launcher = subprocess.Popen(
+        [sys.executable, str(REPO / "scripts" / "train.py"), "-m", "seed=0,1", *LONG_RUN,
+         "hydra/launcher=joblib", "hydra.launcher.n_jobs=2", f"hydra.sweep.dir={sweep}"],
+        cwd=tmp_path, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True,
+    )  # fmt: skip
+    deadline = time.monotonic() + 240
+    while len(list(sweep.glob("*/checkpoints/step-*"))) < 2:
+        assert launcher.poll() is None and time.monotonic() < deadline
+        time.sleep(0.5)
+    workers = _children(launcher.pid)
+    assert workers
+    launcher.kill()
+    launcher.wait()
+    deadline = time.monotonic() + 60
+    while any(_alive(pid) for pid in workers) and time.monotonic() < deadline:
+        time.sleep(0.5)
+    stragglers = [pid for pid in workers if _alive(pid)]
+    for pid in stragglers:
+        os.kill(pid, signal.SIGKILL)
+    assert not stragglers, "workers outlived their launcher"
+    for member in sorted(p for p in sweep.iterdir() if (p / "checkpoints").is_dir()):
+        steps = [int(p.name.split("-")[1]) for p in (member / "checkpoints").glob("step-*")]
+        # The stop checkpoint falls between the regular ones (every 500 steps).
+        assert any(step % 500 for step in steps), (member.name, steps)
