@@ -34,7 +34,9 @@ def check_output_folder(args: list[str]) -> None:
     if any(a in ("--help", "-h", "--hydra-help", "--info") or a.startswith("--cfg") or a == "-c" for a in args):
         return
     plain = [a for a in args if not a.startswith("-")]
-    overrides = expand_overrides(plain)[0]
+    # The first value of every sweep, plus the output folders (expand_overrides leaves hydra.* out).
+    folders = [a for a in plain if a.startswith(("hydra.run.dir=", "hydra.sweep.dir=", "hydra.sweep.subdir="))]
+    overrides = expand_overrides(plain)[0] + folders
     hydra_node = compose_node("train", overrides, with_hydra=True).hydra
     sweeping = "-m" in args or "--multirun" in args or str(hydra_node.mode) == "RunMode.MULTIRUN"
     folder = Path(str(hydra_node.sweep.dir if sweeping else hydra_node.run.dir))
