@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import time
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -51,6 +52,7 @@ class Collector:
         self.env, self.replay, self.scale = env, replay, scale
         self.episode = EpisodeInProgress({"seed": int(seed)})
         self.obs = self._reset()
+        self.env_step_time = 0.0  # seconds inside env.step, for the run's time split
 
     def _reset(self) -> np.ndarray:
         start = self.episode.start
@@ -76,7 +78,9 @@ class Collector:
             DivergenceError: If the env returned a non-finite observation or reward.
         """
         env_action = self.scale.to_env(action)
+        t0 = time.perf_counter()
         next_obs, reward, terminated, truncated, _ = self.env.step(env_action)
+        self.env_step_time += time.perf_counter() - t0
         _check_finite(next_obs, "observation", step)
         _check_finite(np.asarray(reward), "reward", step)
         self.replay.add(self.obs, action, float(reward), next_obs, bool(terminated))

@@ -144,6 +144,11 @@ class RunResult:
     wall_time_s: float
     policy: str = POLICY
     ran_on: dict[str, Any] = field(default_factory=dict)
+    # Where the training loop's time went, in seconds: env_step (the training env's step), update
+    # (gradient steps), loop (everything, evaluation and checkpoints included); None when unknown.
+    time_split_s: dict[str, float] | None = None
+    # How many runs shared this run's process (1 for a single run; K for a member of a population).
+    population: int | None = None
     skipped: bool = field(default=False, compare=False)
 
     def to_json(self) -> dict[str, Any]:

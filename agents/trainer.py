@@ -154,6 +154,7 @@ class TrainingLoop:
             "warmup_rng": self.warmup_rng.bit_generator.state,
             "episode": episode,
             "wall_time_s": self.wall_before + (time.perf_counter() - self.started),
+            "env_step_time_s": self.collector.env_step_time,
         }
         return tensors, record
 
@@ -174,6 +175,7 @@ class TrainingLoop:
         self.step, self.credit = int(record["step"]), float(record["credit"])
         self.curve, self.last_eval, self.last_metrics = record["curve"], record["last_eval"], record["last_metrics"]
         self.wall_before = float(record["wall_time_s"])
+        self.collector.env_step_time = float(record.get("env_step_time_s", 0.0))
 
     def resume_from(self, checkpoint: Path) -> None:
         """Continue from ``checkpoint`` (its replay rows, weights, streams and counters).
@@ -307,6 +309,7 @@ class TrainingLoop:
             alpha=_finite_or_none(self.last_metrics.get("temperature/value", float(self.agent.temperature.alpha().mean()))),
         )
         nan = float("nan")
+        wall = self.wall_before + (time.perf_counter() - self.started)
         log.scalars(
             {
                 "final/return_eval": final.return_eval,
@@ -331,8 +334,10 @@ class TrainingLoop:
             eval_curve=self.curve,
             updates=window.total_updates,
             updates_per_s=window.total_updates / window.total_update_time if window.total_update_time else None,
-            wall_time_s=self.wall_before + (time.perf_counter() - self.started),
+            wall_time_s=wall,
             ran_on=where_this_runs(),
+            time_split_s={"env_step": self.collector.env_step_time, "update": window.total_update_time, "loop": wall},
+            population=1,
         )
         self.folder.write_result(result)
         return result
