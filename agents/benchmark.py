@@ -48,14 +48,14 @@ def matmul_peak_gflops(size: int = 1024, repeats: int = 10) -> float:
 
 
 def _batch(obs_dim: int, act_dim: int, size: int, g: torch.Generator) -> Batch:
-    return Batch(torch.randn(size, obs_dim, generator=g), torch.rand(size, act_dim, generator=g) * 2 - 1,
-                 torch.randn(size, generator=g), torch.randn(size, obs_dim, generator=g), torch.zeros(size))  # fmt: skip
+    return Batch(torch.randn(1, size, obs_dim, generator=g), torch.rand(1, size, act_dim, generator=g) * 2 - 1,
+                 torch.randn(1, size, generator=g), torch.randn(1, size, obs_dim, generator=g), torch.zeros(1, size))  # fmt: skip
 
 
 def updates_per_second(obs_dim: int, act_dim: int, settings: AgentSettings, seconds: float = 5.0) -> float:
     """Sustained updates/s of :class:`SoftActorCritic` on random data (after a short warm-up)."""
     g = torch.Generator().manual_seed(0)
-    agent = SoftActorCritic(obs_dim, act_dim, settings, (-float(act_dim),), g)
+    agent = SoftActorCritic.single(obs_dim, act_dim, settings, (-float(act_dim),), g)
     batch = _batch(obs_dim, act_dim, settings.batch_size, g)
     for _ in range(5):
         agent.update(batch)
