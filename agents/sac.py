@@ -175,6 +175,7 @@ class SoftActorCritic(nn.Module):
         self.critic.requires_grad_(True)
 
         # 3. Temperature (Eq. 18), on the same actions; its gradient in closed form (Temperature.gradient).
+        temperature_objective = self.temperature.loss(log_prob).detach()
         if self.temperature.any_tuned:
             self.temperature.log_alpha.grad = self.temperature.gradient(log_prob)
             self.temperature_opt.step()
@@ -194,7 +195,7 @@ class SoftActorCritic(nn.Module):
                 "actor/entropy_nats": -log_prob.detach().sum(dim=-1).mean(dim=1),
                 "actor/log_std_mean": log_std.detach().mean(dim=(1, 2)),
                 "temperature/value": self.temperature.alpha().mean(dim=1),
-                "temperature/objective": self.temperature.loss(log_prob),
+                "temperature/objective": temperature_objective,
             }
 
     @torch.no_grad()
