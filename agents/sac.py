@@ -110,13 +110,11 @@ class SoftActorCritic(nn.Module):
         action, _, _ = self.actor.sample(x, generator or self.generators[0])
         return action[0].numpy()
 
-    @torch.no_grad()
     def act_all(self, obs: np.ndarray) -> np.ndarray:
         """A policy sample for every agent, ``[population, act_dim]``, from ``obs`` ``[population, obs_dim]``,
         each drawn from the agent's own generator."""
         x = torch.as_tensor(obs, dtype=torch.float32).unsqueeze(1)
-        action, _, _ = self.actor.sample(x, self.generators)
-        return action[:, 0].numpy()
+        return self.actor.sample_actions(x, self.generators)[:, 0].numpy()
 
     @torch.no_grad()
     def act_with_bonus(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, float]:
