@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+import numpy as np
 import torch
 import torch.nn.functional as F
 from torch import nn
@@ -93,6 +94,15 @@ class SquashedGaussianActor(nn.Module):
         if obs.dim() == 2:
             out = out[0]
         return torch.tanh(out[..., : self.act_dim])
+
+    @torch.inference_mode()
+    def act_batch(self, obs: np.ndarray, deterministic: bool, generator: torch.Generator | None = None) -> np.ndarray:
+        """Actions in (−1, 1) for observations ``[n, obs_dim]``: ``tanh(mean)``, or samples drawn from
+        ``generator``. The one way evaluation acts, in training and in the evaluate command alike."""
+        x = torch.as_tensor(np.asarray(obs), dtype=torch.float32)
+        if deterministic:
+            return self.deterministic(x).numpy()
+        return self.sample(x, generator)[0].numpy()
 
     @torch.inference_mode()
     def sample_actions(self, obs: torch.Tensor, generators: Sequence[torch.Generator]) -> torch.Tensor:

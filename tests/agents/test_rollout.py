@@ -82,7 +82,7 @@ def test_batch_masks_steps_after_each_copy_ends():
 
 def test_evaluation_summary_by_hand():
     env = gym.wrappers.TimeLimit(_UnitReward(end=4), max_episode_steps=6)
-    (first,) = run_episodes(env, lambda obs: np.zeros(1, np.float32), [7])
+    (first,) = run_episodes([env], lambda obs: np.zeros((len(obs), 1), np.float32), [7])
     assert first == EpisodeSummary(seed=7, return_=4.0, length=4, terminated=True)
     assert first.record() == {"seed": 7, "return": 4.0, "length": 4, "terminated": True}
     others = [EpisodeSummary(1, 2.0, 2, False), EpisodeSummary(2, 6.0, 6, False)]
@@ -128,3 +128,14 @@ def test_soft_returns_of_the_exact_optimum_match_the_closed_form():
     assert abs(excess.mean()) < 4 * stderr
     assert stderr < 0.02  # the control variate V*(x₀) keeps the check sharp
     np.testing.assert_allclose(starts.std(axis=0), 1.0, atol=0.05)  # x₀ ~ N(0, I): start_std = 1
+
+
+def test_episodes_side_by_side_are_the_episodes_of_lone_envs():
+    # Each evaluation episode runs in its own env from its own seed; stepping them in lockstep must give
+    # exactly what one env per seed, run alone, gives (Pendulum-v1's dynamics, seeded by Gymnasium).
+    seeds = [11, 12, 13]
+    policy = lambda obs: np.clip(-obs[:, 2:3] * 0.5, -2.0, 2.0).astype(np.float32)  # row by row
+    together = run_episodes([gym.make("Pendulum-v1") for _ in seeds], policy, seeds)
+    for seed, episode in zip(seeds, together):
+        alone = rollout_episode(gym.make("Pendulum-v1"), lambda o: (policy(o[None])[0], 0.0), seed)
+        assert episode == EpisodeSummary(seed, float(alone.returns[0]), int(alone.lengths[0]), False)
