@@ -257,7 +257,7 @@ def summarise(episodes: Sequence[EpisodeSummary]) -> dict[str, float]:
 
 
 def q_minus_return(
-    agent: SoftActorCritic, env: gym.Env, scale: ActionScale, seeds: Sequence[int], generator: torch.Generator
+    agent: SoftActorCritic, envs: Sequence[gym.Env], scale: ActionScale, seeds: Sequence[int], generator: torch.Generator
 ) -> float:
     """Mean over episodes of Q(s₀, a₀) − Ĝ₀, with episodes run by the *stochastic* policy.
 
@@ -269,8 +269,9 @@ def q_minus_return(
     beyond the limit, which biases the figure upward by at most γ^T times the soft value there.
 
     Args:
-        agent: Provides ``act_with_bonus`` (a sample in (−1, 1) and α·log π), ``soft_q`` and the discount.
-        env: The task.
+        agent: Provides ``act_with_bonus`` (samples in (−1, 1) and α·log π for a batch of observations),
+            ``soft_q`` (for a batch of state-actions) and the discount.
+        envs: At least one copy of the task per episode (the episodes run side by side).
         scale: Maps the agent's actions to the task's units.
         seeds: Reset seeds, one per episode.
         generator: Source of the policy's samples.
@@ -278,12 +279,10 @@ def q_minus_return(
     Returns:
         The mean gap.
     """
-    gaps = []
-    for seed in seeds:
-        episode = rollout_episode(env, lambda obs: agent.act_with_bonus(obs, generator), seed, scale.to_env)
-        q0 = agent.soft_q(episode.starts[0], episode.first_actions[0])
-        gaps.append(q0 - float(episode.soft_returns(agent.settings.discount, first_entropy=False)[0]))
-    return float(np.mean(gaps))
+    batch = _Lockstep(list(envs)[: len(seeds)], seeds)
+    episodes = rollout(batch, lambda obs: agent.act_with_bonus(obs, generator), 0, scale.to_env)
+    q0 = np.asarray(agent.soft_q(episodes.starts, episodes.first_actions), dtype=np.float64)
+    return float(np.mean(q0 - episodes.soft_returns(agent.settings.discount, first_entropy=False)))
 
 
 def soft_returns(

@@ -100,7 +100,7 @@ class Member:
         cfg: The run's validated config.
         folder: Its folder (claimed by this process).
         env: Its training env; ``eval_envs`` one more copy per evaluation episode (the episodes run
-            side by side; the first copy also runs the Q-bias diagnostic).
+            side by side; so do the Q-bias diagnostic's, on the first copies).
         target: Its resolved target entropy.
         index: Its place in the population (0 for a single run).
     """
@@ -279,12 +279,12 @@ class TrainingLoop:
         # evaluate command evaluates it.
         alone = self.agent if len(self.members) == 1 else self.agent.member(m.index)
         act = alone.actor.act_batch
-        episodes = run_episodes(m.eval_envs, lambda o: m.scale.to_env(act(o, deterministic, generator)), m.eval_seeds)
+        episodes = run_episodes(m.eval_envs[: len(m.eval_seeds)], lambda o: m.scale.to_env(act(o, deterministic, generator)), m.eval_seeds)
         m.last_eval = summarise(episodes)
         m.curve.append([step, m.last_eval["return_mean"]])
         m.log.scalars({"return/eval": m.last_eval["return_mean"], "return/eval_std": m.last_eval["return_std"]}, step)
         if r.bias_episodes and self.window.total_updates:
-            bias = q_minus_return(alone, m.eval_envs[0], m.scale, m.bias_seeds, generator)
+            bias = q_minus_return(alone, m.eval_envs, m.scale, m.bias_seeds, generator)
             m.log.scalars({"bias/q_minus_return": bias}, step)
         return m.last_eval["return_mean"]
 
@@ -539,7 +539,8 @@ def train_members(
             for index, i in enumerate(todo):
                 env, target = _open_task(cfgs[i], len(todo))
                 envs.append(env)
-                eval_envs = [make_env(cfgs[i].env.task) for _ in range(cfgs[i].run.eval_episodes)]
+                copies = max(cfgs[i].run.eval_episodes, cfgs[i].run.bias_episodes)
+                eval_envs = [make_env(cfgs[i].env.task) for _ in range(copies)]
                 envs += eval_envs
                 members.append(Member(cfgs[i], folders[i], env, eval_envs, target, index))
             loop = TrainingLoop(members)

@@ -100,12 +100,12 @@ def test_q_minus_return_by_hand():
     # so the bias is 5 − 2.368 = 2.632 (the entropy term of a₀ is not part of Q(s₀, a₀)).
     agent = SimpleNamespace(
         settings=SimpleNamespace(discount=0.9),
-        act_with_bonus=lambda obs, generator: (np.zeros(1, np.float32), 0.2),
-        soft_q=lambda obs, action: 5.0,
+        act_with_bonus=lambda obs, generator: (np.zeros((len(obs), 1), np.float32), np.full(len(obs), 0.2)),
+        soft_q=lambda obs, action: np.full(len(obs), 5.0),
     )
-    env = gym.wrappers.TimeLimit(_UnitReward(), max_episode_steps=3)
+    envs = [gym.wrappers.TimeLimit(_UnitReward(), max_episode_steps=3) for _ in range(2)]
     scale = ActionScale(np.array([-1.0]), np.array([1.0]))
-    assert q_minus_return(agent, env, scale, [0, 1], torch.Generator()) == pytest.approx(2.632)
+    assert q_minus_return(agent, envs, scale, [0, 1], torch.Generator()) == pytest.approx(2.632)
 
 
 def test_soft_returns_of_the_exact_optimum_match_the_closed_form():
