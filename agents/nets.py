@@ -2,8 +2,8 @@
 
 The twin soft Q-networks are one module whose weights carry a leading axis of size ``members``;
 a forward pass is one batched matmul per layer instead of a Python loop over networks. The actor
-is the same module with ``members = 1``, so that population training can later add agents along
-the same axis without new code.
+is the same module with ``members = 1``; a population of K agents stacks its agents along the same
+axis (K actors, K·count critics), so one batched matmul per layer serves every agent.
 """
 
 from __future__ import annotations
@@ -40,11 +40,16 @@ class EnsembleLinear(nn.Module):
 
     def reset_parameters(self, generator: torch.Generator | None = None) -> None:
         """Initialise each member as torch's ``nn.Linear`` would (uniform ±1/√fan_in), from ``generator``."""
+        self.reset_rows(slice(None), generator)
+
+    def reset_rows(self, rows: slice, generator: torch.Generator | None) -> None:
+        """Initialise the members ``rows`` (weights, then biases) from ``generator``: how a population
+        gives each agent the weights a single run of that agent's seed starts from."""
         bound = 1.0 / math.sqrt(self.in_features)
         with torch.no_grad():
             # Same distribution as nn.Linear's default (kaiming_uniform with a=√5 gives ±1/√fan_in).
-            self.weight.uniform_(-bound, bound, generator=generator)
-            self.bias.uniform_(-bound, bound, generator=generator)
+            self.weight[rows].uniform_(-bound, bound, generator=generator)
+            self.bias[rows].uniform_(-bound, bound, generator=generator)
 
     def forward(self, x: torch.Tensor) -> torch.Tensor:
         if x.dim() == 2:
@@ -83,3 +88,12 @@ class EnsembleMLP(nn.Module):
     def forward(self, x: torch.Tensor) -> torch.Tensor:
         """Map ``[B, in]`` or ``[members, B, in]`` to ``[members, B, out]``."""
         return self.layers(x)
+
+    def linears(self) -> list[EnsembleLinear]:
+        """The affine layers, input first."""
+        return [m for m in self.layers if isinstance(m, EnsembleLinear)]
+
+    def reset_rows(self, rows: slice, generator: torch.Generator | None) -> None:
+        """Initialise members ``rows`` layer by layer, in the order construction does."""
+        for layer in self.linears():
+            layer.reset_rows(rows, generator)
