@@ -6,7 +6,8 @@
     kiln bench --profile                         # per-operator profile of the update instead
 
 Parts: gemm (float32 GEMM rate at the update's shapes), update (updates/s and their fraction of
-that rate; runs gemm too), loop (a Pendulum-v1 training run split into env step, update and the
+that rate; runs gemm too), population (agent-updates/s of 8 agents on one member axis against the
+same 8 updated one after another), loop (a Pendulum-v1 training run split into env step, update and the
 rest), sweep (2 targets × 4 seeds of Pendulum-v1 on all cores, as separate jobs and as populations).
 Everything but the sweep runs in this process on one torch thread. Exit codes: 0 done, 2 bad arguments.
 """
@@ -22,7 +23,8 @@ from typing import Any
 
 from kiln_cli._cli import OneLineParser, fail, guarded
 
-PARTS = ("gemm", "update", "loop", "sweep")
+PARTS = ("gemm", "update", "population", "loop", "sweep")
+POPULATION = 8  # K of the population part: 8 = the 2-target × 4-seed comparison in one process
 
 
 def speed_ratio(ratio: float) -> str:
@@ -107,6 +109,21 @@ def run_gemm_and_update(args: argparse.Namespace, out: dict[str, Any]) -> None:
         print(f"  {case.name:<8}{ups:8.1f} updates/s = {achieved:.1f} GFLOP/s = {fraction:.2f} of the GEMM rate at its shapes")
 
 
+def run_population(args: argparse.Namespace, out: dict[str, Any]) -> None:
+    """K agents as one K-member agent against the same K agents updated one after another."""
+    from agents.bench.cases import CASES
+    from agents.bench.update_speed import population_speed
+
+    print(f"population (K = {POPULATION}; agent-updates/s, each agent its own minibatch):")
+    for case in reversed(CASES):  # small first: the size populations are for
+        speed = population_speed(case, POPULATION, args.seconds)
+        key = f"{case.name}_k{POPULATION}"
+        out["population_speedup"][key] = speed.speedup
+        out["agent_updates_per_s"][key] = {"together": speed.together, "one_after_another": speed.one_after_another}
+        print(f"  {case.name:<8}one {POPULATION}-member agent {speed.together:8.1f}, {POPULATION} agents one after another "
+              f"{speed.one_after_another:8.1f}: {speed_ratio(speed.speedup)}")  # fmt: skip
+
+
 def _loop_line(name: str, split: Any) -> str:
     s = split.shares()
     return (f"  {name:<23}{split.env_steps_per_s:6.0f} env steps/s; env.step {s['env_step']:.1%}, update {s['update']:.1%}, "
@@ -178,7 +195,8 @@ def empty_report(args: argparse.Namespace) -> dict[str, Any]:
         "update_gflop": both(),
         "updates_per_s": both(),
         "gemm_fraction": both(),
-        "population_speedup": {"small_k8": None, "default_k8": None},
+        "population_speedup": {f"small_k{POPULATION}": None, f"default_k{POPULATION}": None},
+        "agent_updates_per_s": {f"small_k{POPULATION}": None, f"default_k{POPULATION}": None},
         "env_steps_per_s": None,
         "loop_overhead_fraction": None,
         "loop_split": {"preset": None, "final_eval_only": None},
@@ -206,6 +224,8 @@ def main(argv: list[str] | None = None) -> None:
     print(f"kiln bench: one torch thread, float32; rates per CPU-second of the measuring thread; load average {load_start:.2f}")
     if "gemm" in args.parts:
         run_gemm_and_update(args, out)
+    if "population" in args.parts:
+        run_population(args, out)
     if "loop" in args.parts:
         run_loop(args, out)
     if "sweep" in args.parts:

@@ -18,12 +18,13 @@ from pathlib import Path
 
 from agents.presets import compose_config
 
-# The loop's parts timed by wrapping, as (module, class, method, bucket). Acting inside an
-# evaluation is counted once, under the evaluation.
+# The loop's parts timed by wrapping, as (module, class, method, bucket): evaluations (their
+# episodes, the Q-bias diagnostic, the one-agent copy they act with), checkpoints, and the training
+# policy's actions (act_all: every agent's action for one env step).
 _TIMED = (
     ("agents.trainer", "TrainingLoop", "_evaluate", "evaluate"),
     ("agents.trainer", "TrainingLoop", "_checkpoint", "checkpoint"),
-    ("agents.sac", "SoftActorCritic", "act", "act"),
+    ("agents.sac", "SoftActorCritic", "act_all", "act"),
 )
 
 

@@ -1,38 +1,45 @@
 """Updates/s of :class:`agents.sac.SoftActorCritic` on random data, one agent or a population.
 
-Rates are the best of several timed rounds: on a shared machine other work only slows a round down.
+Rates are the best of several timed rounds, in CPU time of the measuring thread
+(:data:`agents.bench.cases.cpu_clock`): on a shared machine other work only slows a round down.
 Random data suffice: an update's cost depends on the sizes, not on the values.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 
 import torch
 
-from agents.bench.cases import cpu_clock
+from agents.bench.cases import UpdateCase, cpu_clock
 from agents.replay import Batch
-from agents.sac import SoftActorCritic
+from agents.sac import MemberSetup, SoftActorCritic
 from agents.settings import AgentSettings
 
 _ROUNDS = 5  # timed rounds per measurement; the best is kept
 _WARMUP_UPDATES = 3  # first calls allocate the optimisers' moments and let BLAS pick kernels
 
 
-def build_agent(obs_dim: int, act_dim: int, settings: AgentSettings, seed: int = 0) -> SoftActorCritic:
-    """One agent with the published target entropy −dim(A) and its own generator."""
-    return SoftActorCritic(obs_dim, act_dim, settings, (-float(act_dim),), torch.Generator().manual_seed(seed))
+def build_agent(obs_dim: int, act_dim: int, settings: AgentSettings, population: int = 1, seed: int = 0) -> SoftActorCritic:
+    """``population`` agents on one member axis, each with target entropy −dim(A) and its own generator."""
+    members = [
+        MemberSetup(target_entropy=(-float(act_dim),), generator=torch.Generator().manual_seed(seed + k))
+        for k in range(population)
+    ]
+    return SoftActorCritic(obs_dim, act_dim, settings, members)
 
 
-def random_batch(obs_dim: int, act_dim: int, rows: int, seed: int = 0) -> Batch:
-    """A minibatch of ``rows`` random transitions (actions in (−1, 1), none terminal)."""
+def random_batch(obs_dim: int, act_dim: int, rows: int, population: int = 1, seed: int = 0) -> Batch:
+    """``rows`` random transitions per agent, ``[population, rows, ...]`` (actions in (−1, 1), none terminal)."""
     g = torch.Generator().manual_seed(seed)
+    p = population
     return Batch(
-        obs=torch.randn(rows, obs_dim, generator=g),
-        action=torch.rand(rows, act_dim, generator=g) * 2 - 1,
-        reward=torch.randn(rows, generator=g),
-        next_obs=torch.randn(rows, obs_dim, generator=g),
-        terminated=torch.zeros(rows),
+        obs=torch.randn(p, rows, obs_dim, generator=g),
+        action=torch.rand(p, rows, act_dim, generator=g) * 2 - 1,
+        reward=torch.randn(p, rows, generator=g),
+        next_obs=torch.randn(p, rows, obs_dim, generator=g),
+        terminated=torch.zeros(p, rows),
     )
 
 
@@ -65,3 +72,33 @@ def one_after_another(agents: Sequence[SoftActorCritic], batches: Sequence[Batch
             agent.update(batch)
 
     return step
+
+
+@dataclass(frozen=True)
+class PopulationSpeed:
+    """Agent-updates/s of K agents updated together (one K-member agent) and one after another."""
+
+    population: int
+    together: float
+    one_after_another: float
+
+    @property
+    def speedup(self) -> float:
+        """How many times more agent-updates/s the member axis gives."""
+        return self.together / self.one_after_another
+
+
+def population_speed(case: UpdateCase, population: int, seconds: float) -> PopulationSpeed:
+    """Measure ``population`` agents of ``case``'s size both ways, ``seconds`` for each way.
+
+    Each agent gets its own minibatch in both ways, so both do the same arithmetic.
+    """
+    s, k = case.settings(), population
+    together = build_agent(case.obs_dim, case.act_dim, s, population=k)
+    batch = random_batch(case.obs_dim, case.act_dim, case.batch_size, population=k)
+    rate_together = k * best_rate(lambda: together.update(batch), seconds)
+    separate = [build_agent(case.obs_dim, case.act_dim, s, seed=i) for i in range(k)]
+    # Agent i alone gets the rows agent i gets in the population (slices of the same batch).
+    batches = [Batch(*(t[i : i + 1] for t in (batch.obs, batch.action, batch.reward, batch.next_obs, batch.terminated))) for i in range(k)]
+    rate_separate = k * best_rate(one_after_another(separate, batches), seconds)
+    return PopulationSpeed(k, rate_together, rate_separate)

@@ -5,7 +5,7 @@ import pytest
 import torch
 from torch.utils.flop_counter import FlopCounterMode
 
-from agents.bench.cases import CASES, DEFAULT, SMALL
+from agents.bench.cases import DEFAULT, SMALL
 from agents.bench.gemm_shapes import Gemm, merge, total_flops, update_gemms
 from agents.bench.update_speed import build_agent, random_batch
 from agents.presets import compose_config
@@ -21,18 +21,21 @@ def test_hand_arithmetic_on_a_tiny_network():
     assert total_flops(update_gemms(2, 1, (3,), 4, 2)) == 336 + 1008
 
 
-@pytest.mark.parametrize("case", CASES, ids=lambda c: c.name)
-def test_flops_match_torch_flop_counter_over_a_real_update(case):
+@pytest.mark.parametrize(
+    "case,population", [(DEFAULT, 1), (SMALL, 1), (SMALL, 8)], ids=["default", "small", "small-population-8"]
+)
+def test_flops_match_torch_flop_counter_over_a_real_update(case, population):
     # Reference: torch.utils.flop_counter.FlopCounterMode counts 2·m·k·n per (batched) matmul that
     # autograd and the forward pass actually run (mm, bmm, addmm, baddbmm, matmul's decompositions).
-    agent = build_agent(case.obs_dim, case.act_dim, case.settings())
-    batch = random_batch(case.obs_dim, case.act_dim, case.batch_size)
+    agent = build_agent(case.obs_dim, case.act_dim, case.settings(), population=population)
+    batch = random_batch(case.obs_dim, case.act_dim, case.batch_size, population=population)
     agent.update(batch)  # the first update creates the optimisers' state; count a later one
     counter = FlopCounterMode(display=False)
     with counter:
         agent.update(batch)
     expected = counter.get_total_flops()
-    assert total_flops(update_gemms(case.obs_dim, case.act_dim, case.layer_widths, case.batch_size, case.critics)) == expected
+    gemms = update_gemms(case.obs_dim, case.act_dim, case.layer_widths, case.batch_size, case.critics, population)
+    assert total_flops(gemms) == expected
 
 
 def test_population_multiplies_every_product_by_the_member_count():

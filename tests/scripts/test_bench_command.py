@@ -51,15 +51,16 @@ def test_loop_budget_within_the_warmup_is_refused_before_measuring(tmp_path: Pat
 
 def test_last_line_is_json_with_every_key(tmp_path: Path) -> None:
     # Tiny budgets: the figures are meaningless, only their presence and kind are checked.
-    proc = run_kiln("bench", "--parts", "update,loop", "--seconds", "0.05", "--steps", "1050", cwd=tmp_path, timeout=300)
+    proc = run_kiln("bench", "--parts", "update,population,loop", "--seconds", "0.05", "--steps", "1050", cwd=tmp_path, timeout=300)
     assert proc.returncode == 0, proc.stderr
     record = json.loads(proc.stdout.strip().splitlines()[-1])
     for key, sub in REQUIRED.items():
         assert key in record, key
         if sub is not None:
             assert set(record[key]) >= sub, key
-    assert record["parts"] == ["gemm", "update", "loop"]  # update brings its denominator, gemm
-    for value in (record["gemm_gflops"], *record["updates_per_s"].values(), *record["gemm_fraction"].values()):
+    assert record["parts"] == ["gemm", "update", "population", "loop"]  # update brings its denominator, gemm
+    for value in (record["gemm_gflops"], *record["updates_per_s"].values(), *record["gemm_fraction"].values(),
+                  *record["population_speedup"].values()):
         assert value > 0
     assert 0 < record["loop_overhead_fraction"] < 1
     assert record["env_steps_per_s"] > 0
