@@ -4,6 +4,7 @@
     kiln bench --parts gemm,update --seconds 1   # only some parts, shorter measurements
     kiln bench --parts loop --steps 2000         # a shorter Pendulum-v1 run than the preset's
     kiln bench --profile                         # per-operator profile of the update instead
+    kiln bench --profile --updates 50            # ... over more updates per size
 
 Parts: gemm (float32 GEMM rate at the update's shapes), update (updates/s and their fraction of
 that rate; runs gemm too), population (agent-updates/s of 8 agents on one member axis against the
@@ -51,6 +52,7 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     parser.add_argument("--steps", type=int, default=None,
                         help="env steps of the loop and sweep runs (default: the Pendulum-v1 preset's budget)")
     parser.add_argument("--profile", action="store_true", help="print the update's per-operator profile and per-shape GEMM table instead")
+    parser.add_argument("--updates", type=int, default=20, help="profiled updates per size with --profile (default 20)")
     args = parser.parse_args(argv)
     try:
         args.parts = parse_parts(args.parts)
@@ -60,6 +62,8 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
         parser.error(f"--seconds must be a number above 0, got {args.seconds}")
     if args.steps is not None and args.steps < 1:
         parser.error(f"--steps must be at least 1, got {args.steps}")
+    if args.updates < 1:
+        parser.error(f"--updates must be at least 1, got {args.updates}")
     return args
 
 
@@ -78,35 +82,37 @@ def _fmt(x: float | None, spec: str = ".1f") -> str:
 
 
 def run_gemm_and_update(args: argparse.Namespace, out: dict[str, Any]) -> None:
-    """GEMM rates at each case's shapes and the 256² square; with ``update``, updates/s and fractions."""
+    """GEMM rates at each case's shapes and the 256² square; with ``update``, updates/s and fractions
+    (update and GEMM rounds alternate, so both see the same load)."""
     from agents.bench.cases import CASES
+    from agents.bench.gemm_fraction import measure_update_vs_gemm
     from agents.bench.gemm_rate import shape_rates, square_gflops, weighted_gflops
     from agents.bench.gemm_shapes import total_flops, update_gemms
-    from agents.bench.update_speed import updates_per_second
 
-    print("GEMM rate at each update's shapes (float32, best time per shape, FLOP-weighted):")
+    with_update = "update" in args.parts
+    print("GEMM rate at each update's shapes (float32, best time per shape, FLOP-weighted)"
+          + (", and the update (SoftActorCritic.update on a fixed random minibatch), in alternating rounds:" if with_update else ":"))  # fmt: skip
     for case in CASES:
         gemms = update_gemms(case.obs_dim, case.act_dim, case.layer_widths, case.batch_size, case.critics)
-        rates = shape_rates(gemms, args.seconds)
-        rate, per_member = weighted_gflops(rates), weighted_gflops(rates, per_member_mm=True)
-        out["gemm_gflops_by_case"][case.name] = rate
-        out["gemm_gflops_per_member_mm"][case.name] = per_member
-        out["update_gflop"][case.name] = total_flops(gemms) / 1e9
-        print(f"  {case.name:<8}{case.label}: {total_flops(gemms) / 1e9:.4f} GFLOP/update in {len(gemms)} shapes, "
-              f"{rate:.1f} GFLOP/s (with mm per member where faster: {per_member:.1f})")  # fmt: skip
+        if with_update:
+            m = measure_update_vs_gemm(case, args.seconds)
+            rate, per_member = m.gemm_gflops, m.gemm_gflops_per_member_mm
+            out["updates_per_s"][case.name], out["gemm_fraction"][case.name] = m.updates_per_s, m.gemm_fraction
+        else:
+            rates = shape_rates(gemms, args.seconds)
+            rate, per_member = weighted_gflops(rates), weighted_gflops(rates, per_member_mm=True)
+        gflop = total_flops(gemms) / 1e9
+        out["gemm_gflops_by_case"][case.name], out["gemm_gflops_per_member_mm"][case.name] = rate, per_member
+        out["update_gflop"][case.name] = gflop
+        print(f"  {case.name:<8}{case.label}: {gflop:.4f} GFLOP/update in {len(gemms)} shapes")
+        print(f"          GEMM {rate:.1f} GFLOP/s (with one mm per member where faster than bmm: {per_member:.1f})")
+        if with_update:
+            print(f"          update {m.updates_per_s:.1f}/s = {m.updates_per_s * gflop:.1f} GFLOP/s = "
+                  f"{m.gemm_fraction:.2f} of the GEMM rate at its shapes")  # fmt: skip
     out["gemm_gflops"] = out["gemm_gflops_by_case"]["default"]
     square = square_gflops(256, args.seconds / 2)
     out["gemm_gflops_by_case"]["square_256"] = square
     print(f"  square  256×256 @ 256×256: {square:.1f} GFLOP/s")
-    if "update" not in args.parts:
-        return
-    print("update (SoftActorCritic.update on a fixed random minibatch, best of 5 rounds):")
-    for case in CASES:
-        ups = updates_per_second(case.obs_dim, case.act_dim, case.settings(), args.seconds)
-        achieved = ups * out["update_gflop"][case.name]
-        fraction = achieved / out["gemm_gflops_by_case"][case.name]
-        out["updates_per_s"][case.name], out["gemm_fraction"][case.name] = ups, fraction
-        print(f"  {case.name:<8}{ups:8.1f} updates/s = {achieved:.1f} GFLOP/s = {fraction:.2f} of the GEMM rate at its shapes")
 
 
 def run_population(args: argparse.Namespace, out: dict[str, Any]) -> None:
@@ -164,21 +170,23 @@ def run_sweep(args: argparse.Namespace, out: dict[str, Any]) -> None:
 
 
 def run_profile(args: argparse.Namespace) -> None:
-    """Per-operator tables of the update at both sizes, and the per-shape GEMM tables."""
-    from agents.bench.cases import CASES
+    """Per-operator tables of the update (default, small, and a population of small agents), and the
+    per-shape GEMM tables."""
+    from agents.bench.cases import DEFAULT, SMALL
     from agents.bench.gemm_rate import shape_rates
     from agents.bench.gemm_shapes import update_gemms
     from agents.bench.update_profile import operator_table, profile_update
 
-    for case in CASES:
-        rows, us = profile_update(case.obs_dim, case.act_dim, case.settings())
+    for case, k in ((DEFAULT, 1), (SMALL, 1), (SMALL, POPULATION)):
+        rows, us = profile_update(case.obs_dim, case.act_dim, case.settings(), population=k, updates=args.updates)
         gemm_share = sum(r.share for r in rows if r.name in ("aten::mm", "aten::bmm", "aten::addmm", "aten::baddbmm"))
-        print(f"update profile, {case.name} ({case.label}): {us:.0f} µs of operator self time per profiled update, "
+        name = case.name if k == 1 else f"{case.name}, population of {k}"
+        print(f"update profile, {name} ({case.label}): {us:.0f} µs of operator self time per profiled update, "
               f"{gemm_share:.1%} in GEMM operators (mm, bmm, addmm, baddbmm)")  # fmt: skip
         print("\n".join(operator_table(rows)))
-        print(f"GEMMs of one update, {case.name}: best µs per call as the update runs them (mm or bmm) and as one mm per member")
+        print(f"GEMMs of one update, {name}: best µs per call as the update runs them (mm or bmm) and as one mm per member")
         print(f"  {'product':<28}{'calls':>6}{'µs':>9}{'GFLOP/s':>9}{'mm/member µs':>14}{'GFLOP/s':>9}")
-        gemms = update_gemms(case.obs_dim, case.act_dim, case.layer_widths, case.batch_size, case.critics)
+        gemms = update_gemms(case.obs_dim, case.act_dim, case.layer_widths, case.batch_size, case.critics, k)
         for r in shape_rates(gemms, args.seconds):
             print(f"  {r.gemm.label:<28}{r.gemm.count:>6}{r.best_s * 1e6:>9.1f}{r.gflops:>9.1f}"
                   f"{r.per_member_mm_s * 1e6:>14.1f}{r.per_member_mm_gflops:>9.1f}")  # fmt: skip

@@ -25,14 +25,17 @@ class OperatorRow:
     share: float  # of all operators' self time
 
 
-def profile_update(obs_dim: int, act_dim: int, settings: AgentSettings, updates: int = 20) -> tuple[list[OperatorRow], float]:
-    """Operators of ``updates`` profiled updates, most self time first, and the profiled µs per update.
+def profile_update(
+    obs_dim: int, act_dim: int, settings: AgentSettings, population: int = 1, updates: int = 20
+) -> tuple[list[OperatorRow], float]:
+    """Operators of ``updates`` profiled updates of ``population`` agents, most self time first, and
+    the profiled µs per update.
 
     Self time is time inside the operator itself, not in operators it calls, so the rows add up to
     the whole update's operator time.
     """
-    agent = build_agent(obs_dim, act_dim, settings)
-    batch = random_batch(obs_dim, act_dim, settings.batch_size)
+    agent = build_agent(obs_dim, act_dim, settings, population)
+    batch = random_batch(obs_dim, act_dim, settings.batch_size, population)
     for _ in range(3):  # warm-up outside the record: optimiser moments, kernel choice
         agent.update(batch)
     with profile(activities=[ProfilerActivity.CPU]) as prof:

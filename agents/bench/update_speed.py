@@ -18,7 +18,7 @@ from agents.sac import MemberSetup, SoftActorCritic
 from agents.settings import AgentSettings
 
 _ROUNDS = 5  # timed rounds per measurement; the best is kept
-_WARMUP_UPDATES = 3  # first calls allocate the optimisers' moments and let BLAS pick kernels
+WARMUP_UPDATES = 3  # first calls allocate the optimisers' moments and let BLAS pick kernels
 
 
 def build_agent(obs_dim: int, act_dim: int, settings: AgentSettings, population: int = 1, seed: int = 0) -> SoftActorCritic:
@@ -43,18 +43,20 @@ def random_batch(obs_dim: int, act_dim: int, rows: int, population: int = 1, see
     )
 
 
-def best_rate(step: Callable[[], object], seconds: float) -> float:
-    """Best calls per CPU-second of ``step`` over :data:`_ROUNDS` rounds sharing ``seconds`` (at least one call each)."""
-    for _ in range(_WARMUP_UPDATES):
+def timed_round(step: Callable[[], object], seconds: float) -> float:
+    """Calls per CPU-second of ``step`` over one round of about ``seconds`` (at least one call)."""
+    n, t0 = 0, cpu_clock()
+    while n == 0 or cpu_clock() - t0 < seconds:
         step()
-    best = 0.0
-    for _ in range(_ROUNDS):
-        n, t0 = 0, cpu_clock()
-        while n == 0 or cpu_clock() - t0 < seconds / _ROUNDS:
-            step()
-            n += 1
-        best = max(best, n / (cpu_clock() - t0))
-    return best
+        n += 1
+    return n / (cpu_clock() - t0)
+
+
+def best_rate(step: Callable[[], object], seconds: float) -> float:
+    """Best calls per CPU-second of ``step`` over :data:`_ROUNDS` rounds sharing ``seconds``."""
+    for _ in range(WARMUP_UPDATES):
+        step()
+    return max(timed_round(step, seconds / _ROUNDS) for _ in range(_ROUNDS))
 
 
 def updates_per_second(obs_dim: int, act_dim: int, settings: AgentSettings, seconds: float) -> float:
@@ -91,14 +93,22 @@ class PopulationSpeed:
 def population_speed(case: UpdateCase, population: int, seconds: float) -> PopulationSpeed:
     """Measure ``population`` agents of ``case``'s size both ways, ``seconds`` for each way.
 
-    Each agent gets its own minibatch in both ways, so both do the same arithmetic.
+    Each agent gets its own minibatch in both ways, so both do the same arithmetic; the two ways
+    take turns round by round, so both see the same load, and each keeps its best round.
     """
     s, k = case.settings(), population
     together = build_agent(case.obs_dim, case.act_dim, s, population=k)
     batch = random_batch(case.obs_dim, case.act_dim, case.batch_size, population=k)
-    rate_together = k * best_rate(lambda: together.update(batch), seconds)
     separate = [build_agent(case.obs_dim, case.act_dim, s, seed=i) for i in range(k)]
     # Agent i alone gets the rows agent i gets in the population (slices of the same batch).
-    batches = [Batch(*(t[i : i + 1] for t in (batch.obs, batch.action, batch.reward, batch.next_obs, batch.terminated))) for i in range(k)]
-    rate_separate = k * best_rate(one_after_another(separate, batches), seconds)
-    return PopulationSpeed(k, rate_together, rate_separate)
+    fields = (batch.obs, batch.action, batch.reward, batch.next_obs, batch.terminated)
+    batches = [Batch(*(t[i : i + 1] for t in fields)) for i in range(k)]
+    steps = (lambda: together.update(batch), one_after_another(separate, batches))
+    for step in steps:
+        for _ in range(WARMUP_UPDATES):
+            step()
+    best = [0.0, 0.0]
+    for _ in range(_ROUNDS):
+        for i, step in enumerate(steps):
+            best[i] = max(best[i], timed_round(step, seconds / _ROUNDS))
+    return PopulationSpeed(k, k * best[0], k * best[1])

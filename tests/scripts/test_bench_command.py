@@ -34,6 +34,7 @@ REQUIRED = {
         (["--seconds", "nan"], "--seconds must be a number above 0"),
         (["--seconds", "x"], "invalid float value: 'x'"),
         (["--steps", "0"], "--steps must be at least 1"),
+        (["--profile", "--updates", "0"], "--updates must be at least 1"),
         (["--bogus"], "unrecognized arguments: --bogus"),
     ],
 )
@@ -69,10 +70,10 @@ def test_last_line_is_json_with_every_key(tmp_path: Path) -> None:
 
 
 def test_profile_prints_operator_and_gemm_tables(tmp_path: Path) -> None:
-    proc = run_kiln("bench", "--profile", "--seconds", "0.05", cwd=tmp_path, timeout=300)
+    proc = run_kiln("bench", "--profile", "--updates", "2", "--seconds", "0.05", cwd=tmp_path, timeout=300)
     assert proc.returncode == 0, proc.stderr
-    for size in ("default", "small"):
-        assert f"update profile, {size}" in proc.stdout and f"GEMMs of one update, {size}" in proc.stdout
+    for size in ("default", "small", "small, population of 8"):
+        assert f"update profile, {size} (" in proc.stdout and f"GEMMs of one update, {size}:" in proc.stdout
     assert "aten::bmm" in proc.stdout and "others)" in proc.stdout
 
 
