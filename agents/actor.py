@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+import numpy as np
 import torch
 import torch.nn.functional as F
 from torch import nn
@@ -86,8 +87,28 @@ class SquashedGaussianActor(nn.Module):
             action, log_prob = squashed_gaussian.sample(mean, log_std, generator)
         return action, log_prob, log_std
 
-    @torch.no_grad()
+    @torch.inference_mode()
     def deterministic(self, obs: torch.Tensor) -> torch.Tensor:
-        """The policy's mode in u-space, squashed: ``tanh(mean)``."""
-        mean, _ = self(obs)
-        return torch.tanh(mean)
+        """The policy's mode in u-space, squashed: ``tanh(mean)`` (the log-std head is not needed)."""
+        out = self.body(obs)
+        if obs.dim() == 2:
+            out = out[0]
+        return torch.tanh(out[..., : self.act_dim])
+
+    @torch.inference_mode()
+    def act_batch(self, obs: np.ndarray, deterministic: bool, generator: torch.Generator | None = None) -> np.ndarray:
+        """Actions in (−1, 1) for observations ``[n, obs_dim]``: ``tanh(mean)``, or samples drawn from
+        ``generator``. The one way evaluation acts, in training and in the evaluate command alike."""
+        x = torch.as_tensor(np.asarray(obs), dtype=torch.float32)
+        if deterministic:
+            return self.deterministic(x).numpy()
+        return self.sample(x, generator)[0].numpy()
+
+    @torch.inference_mode()
+    def sample_actions(self, obs: torch.Tensor, generators: Sequence[torch.Generator]) -> torch.Tensor:
+        """Policy samples ``tanh(mean + std·noise)`` for ``obs`` ``[population, B, obs_dim]``, one
+        generator per agent, without the log-density: what collecting transitions needs. Draws the
+        same noise as :meth:`sample`, so either keeps a run's generator on the same course."""
+        mean, log_std = self(obs)
+        noise = torch.stack([torch.randn(mean.shape[1:], generator=g) for g in generators])
+        return torch.tanh(mean + torch.exp(log_std) * noise)

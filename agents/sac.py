@@ -110,27 +110,26 @@ class SoftActorCritic(nn.Module):
         action, _, _ = self.actor.sample(x, generator or self.generators[0])
         return action[0].numpy()
 
-    @torch.no_grad()
     def act_all(self, obs: np.ndarray) -> np.ndarray:
         """A policy sample for every agent, ``[population, act_dim]``, from ``obs`` ``[population, obs_dim]``,
         each drawn from the agent's own generator."""
         x = torch.as_tensor(obs, dtype=torch.float32).unsqueeze(1)
-        action, _, _ = self.actor.sample(x, self.generators)
-        return action[:, 0].numpy()
+        return self.actor.sample_actions(x, self.generators)[:, 0].numpy()
 
-    @torch.no_grad()
-    def act_with_bonus(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, float]:
-        """A policy sample for one observation (drawn from ``generator``) and its entropy term α·log π(a|s)."""
-        x = torch.as_tensor(obs, dtype=torch.float32).view(1, 1, -1)
+    @torch.inference_mode()
+    def act_with_bonus(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, np.ndarray]:
+        """Policy samples for observations ``[n, obs_dim]`` of a one-agent population (drawn from
+        ``generator``) and their entropy terms α·log π(a|s), ``[n]``."""
+        x = torch.as_tensor(np.asarray(obs), dtype=torch.float32).unsqueeze(0)
         action, log_prob, _ = self.actor.sample(x, [generator])
-        return action[0, 0].numpy(), float(self.temperature.bonus(log_prob)[0, 0])
+        return action[0].numpy(), self.temperature.bonus(log_prob)[0].numpy()
 
-    @torch.no_grad()
-    def soft_q(self, obs: np.ndarray, action: np.ndarray) -> float:
-        """The critic's soft-Q estimate min_k Q_k(s, a) for one state-action (action in (−1, 1))."""
-        o = torch.as_tensor(obs, dtype=torch.float32).view(1, 1, -1)
-        a = torch.as_tensor(action, dtype=torch.float32).view(1, 1, -1)
-        return float(self.critic(o, a).min(dim=1).values[0, 0])
+    @torch.inference_mode()
+    def soft_q(self, obs: np.ndarray, action: np.ndarray) -> np.ndarray:
+        """The critic's soft-Q estimates min_k Q_k(s, a) for state-actions ``[n, ·]`` (actions in (−1, 1)), ``[n]``."""
+        o = torch.as_tensor(np.asarray(obs), dtype=torch.float32).unsqueeze(0)
+        a = torch.as_tensor(np.asarray(action), dtype=torch.float32).unsqueeze(0)
+        return self.critic(o, a).min(dim=1).values[0].numpy()
 
     # ----- the update -------------------------------------------------------------------------------
 
@@ -175,6 +174,7 @@ class SoftActorCritic(nn.Module):
         self.critic.requires_grad_(True)
 
         # 3. Temperature (Eq. 18), on the same actions; its gradient in closed form (Temperature.gradient).
+        temperature_objective = self.temperature.loss(log_prob).detach()
         if self.temperature.any_tuned:
             self.temperature.log_alpha.grad = self.temperature.gradient(log_prob)
             self.temperature_opt.step()
@@ -194,7 +194,7 @@ class SoftActorCritic(nn.Module):
                 "actor/entropy_nats": -log_prob.detach().sum(dim=-1).mean(dim=1),
                 "actor/log_std_mean": log_std.detach().mean(dim=(1, 2)),
                 "temperature/value": self.temperature.alpha().mean(dim=1),
-                "temperature/objective": self.temperature.loss(log_prob),
+                "temperature/objective": temperature_objective,
             }
 
     @torch.no_grad()

@@ -99,14 +99,17 @@ class Member:
     Args:
         cfg: The run's validated config.
         folder: Its folder (claimed by this process).
-        env: Its training env; ``eval_env`` a second copy for evaluation and the Q-bias diagnostic.
+        env: Its training env; ``eval_envs`` one more copy per evaluation episode (the episodes run
+            side by side; so do the Q-bias diagnostic's, on the first copies).
         target: Its resolved target entropy.
         index: Its place in the population (0 for a single run).
     """
 
-    def __init__(self, cfg: RunConfig, folder: RunFolder, env: gym.Env, eval_env: gym.Env, target: tuple[float, ...], index: int) -> None:
+    def __init__(
+        self, cfg: RunConfig, folder: RunFolder, env: gym.Env, eval_envs: list[gym.Env], target: tuple[float, ...], index: int
+    ) -> None:
         r = cfg.run
-        self.cfg, self.folder, self.env, self.eval_env, self.index = cfg, folder, env, eval_env, index
+        self.cfg, self.folder, self.env, self.eval_envs, self.index = cfg, folder, env, eval_envs, index
         self.target, self.target_total = target, sum(target)
         self.streams = RunStreams(r.seed)
         self.generator = self.streams.training_generator()
@@ -275,12 +278,13 @@ class TrainingLoop:
         # A one-agent copy: exactly the network the saved policy will hold, evaluated the way the
         # evaluate command evaluates it.
         alone = self.agent if len(self.members) == 1 else self.agent.member(m.index)
-        episodes = run_episodes(m.eval_env, lambda o: m.scale.to_env(alone.act(o, deterministic, generator)), m.eval_seeds)
+        act = alone.actor.act_batch
+        episodes = run_episodes(m.eval_envs[: len(m.eval_seeds)], lambda o: m.scale.to_env(act(o, deterministic, generator)), m.eval_seeds)
         m.last_eval = summarise(episodes)
         m.curve.append([step, m.last_eval["return_mean"]])
         m.log.scalars({"return/eval": m.last_eval["return_mean"], "return/eval_std": m.last_eval["return_std"]}, step)
         if r.bias_episodes and self.window.total_updates:
-            bias = q_minus_return(alone, m.eval_env, m.scale, m.bias_seeds, generator)
+            bias = q_minus_return(alone, m.eval_envs, m.scale, m.bias_seeds, generator)
             m.log.scalars({"bias/q_minus_return": bias}, step)
         return m.last_eval["return_mean"]
 
@@ -379,7 +383,7 @@ class TrainingLoop:
                     )
             self._check_weights()
             for m in self._active():
-                env_record = TaskSpec(m.cfg.env.id, m.cfg.env.kwargs, m.eval_env.spec.max_episode_steps).to_record()
+                env_record = TaskSpec(m.cfg.env.id, m.cfg.env.kwargs, m.eval_envs[0].spec.max_episode_steps).to_record()
                 actor = self.agent.actor if len(self.members) == 1 else self.agent.member(m.index).actor
                 spec = build_spec(actor, m.env.observation_space, m.env.action_space, env_record, m.cfg.raw)
                 save_policy(m.folder.policy_path, actor, spec)
@@ -535,9 +539,10 @@ def train_members(
             for index, i in enumerate(todo):
                 env, target = _open_task(cfgs[i], len(todo))
                 envs.append(env)
-                eval_env = make_env(cfgs[i].env.task)
-                envs.append(eval_env)
-                members.append(Member(cfgs[i], folders[i], env, eval_env, target, index))
+                copies = max(cfgs[i].run.eval_episodes, cfgs[i].run.bias_episodes)
+                eval_envs = [make_env(cfgs[i].env.task) for _ in range(copies)]
+                envs += eval_envs
+                members.append(Member(cfgs[i], folders[i], env, eval_envs, target, index))
             loop = TrainingLoop(members)
             latest = _common_checkpoints(members) if r.resume else None
             if latest is not None:
