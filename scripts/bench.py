@@ -67,12 +67,14 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     return args
 
 
-def _check_steps_update(steps: int | None) -> None:
+def _check_budget(steps: int | None) -> None:
     """Refuse a loop or sweep budget that ends within the preset's warm-up (no update would run)."""
+    if steps is None:
+        return
     from agents.presets import compose_config
 
     warmup = compose_config("train", ["env=pendulum"])["collect"]["warmup_steps"]
-    if steps is not None and steps <= warmup:
+    if steps <= warmup:
         fail(f"--steps {steps} ends within the Pendulum-v1 preset's warm-up of {warmup} steps, so nothing "
              f"would be updated; fix: give --steps above {warmup}")  # fmt: skip
 
@@ -220,7 +222,7 @@ def main(argv: list[str] | None = None) -> None:
     """Run the chosen parts and print their lines, then the JSON line (arguments without the program name)."""
     args = parse_args(argv)
     if not args.profile and {"loop", "sweep"} & set(args.parts):
-        _check_steps_update(args.steps)
+        _check_budget(args.steps)
     import torch  # loads only past the argument checks, so a typo is answered at once
 
     torch.set_num_threads(1)

@@ -9,6 +9,7 @@ a second run that evaluates and checkpoints only at its end shows the same thing
 
 from __future__ import annotations
 
+import importlib
 import tempfile
 import time
 from collections.abc import Callable, Iterator
@@ -17,6 +18,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from agents.presets import compose_config
+from agents.trainer import train
 
 # The loop's parts timed by wrapping, as (module, class, method, bucket): evaluations (their
 # episodes, the Q-bias diagnostic, the one-agent copy they act with), checkpoints, and the training
@@ -108,10 +110,6 @@ def pendulum_overrides(steps: int | None, periodic: bool = True) -> list[str]:
 
 def measure_loop(overrides: list[str]) -> LoopSplit:
     """Train one run of the composed config in a temporary folder and split its loop time."""
-    import importlib
-
-    from agents.trainer import train
-
     raw = compose_config("train", overrides)
     seconds = {bucket: 0.0 for *_, bucket in _TIMED}
     found: set[str] = set()

@@ -2,7 +2,6 @@
 (PyTorch's own FLOP counter, run over a real update) and against hand arithmetic."""
 
 import pytest
-import torch
 from torch.utils.flop_counter import FlopCounterMode
 
 from agents.bench.cases import DEFAULT, SMALL
