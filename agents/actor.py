@@ -103,12 +103,3 @@ class SquashedGaussianActor(nn.Module):
         if deterministic:
             return self.deterministic(x).numpy()
         return self.sample(x, generator)[0].numpy()
-
-    @torch.inference_mode()
-    def sample_actions(self, obs: torch.Tensor, generators: Sequence[torch.Generator]) -> torch.Tensor:
-        """Policy samples ``tanh(mean + std·noise)`` for ``obs`` ``[population, B, obs_dim]``, one
-        generator per agent, without the log-density: what collecting transitions needs. Draws the
-        same noise as :meth:`sample`, so either keeps a run's generator on the same course."""
-        mean, log_std = self(obs)
-        noise = torch.stack([torch.randn(mean.shape[1:], generator=g) for g in generators])
-        return torch.tanh(mean + torch.exp(log_std) * noise)

@@ -19,6 +19,7 @@ import numpy as np
 import torch
 from torch import nn
 
+from agents import numpy_actor
 from agents.actor import SquashedGaussianActor
 from agents.critic import SoftQEnsemble
 from agents.replay import Batch
@@ -113,8 +114,7 @@ class SoftActorCritic(nn.Module):
     def act_all(self, obs: np.ndarray) -> np.ndarray:
         """A policy sample for every agent, ``[population, act_dim]``, from ``obs`` ``[population, obs_dim]``,
         each drawn from the agent's own generator."""
-        x = torch.as_tensor(obs, dtype=torch.float32).unsqueeze(1)
-        return self.actor.sample_actions(x, self.generators)[:, 0].numpy()
+        return numpy_actor.sample_actions(self.actor, obs, self.generators)
 
     @torch.inference_mode()
     def act_with_bonus(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, np.ndarray]:
