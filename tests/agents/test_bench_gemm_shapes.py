@@ -32,9 +32,12 @@ def test_flops_match_torch_flop_counter_over_a_real_update(case, population):
     counter = FlopCounterMode(display=False)
     with counter:
         agent.update(batch)
-    expected = counter.get_total_flops()
+    counted = counter.get_total_flops()
     gemms = update_gemms(case.obs_dim, case.act_dim, case.layer_widths, case.batch_size, case.critics, population)
-    assert total_flops(gemms) == expected
+    # Products with a width-1 side (the critics' last layer: forward, weight and input gradients) run
+    # as multiply-and-sum (agents/nets.py), the same arithmetic, which the counter does not see.
+    width_one = [g for g in gemms if g.n == 1 or g.k == 1]
+    assert width_one and total_flops(gemms) == counted + total_flops(width_one)
 
 
 def test_population_multiplies_every_product_by_the_member_count():
