@@ -237,3 +237,12 @@ def test_points_that_would_share_a_folder_are_refused_before_training(tmp_path, 
                       "hydra.sweep.subdir=same", cwd=tmp_path, env=presets, timeout=120)  # fmt: skip
     assert_one_line_error(proc, f"would both train in {sweep / 'same'}", "hydra.sweep.subdir")
     assert not (sweep / "same").exists()
+
+
+def test_member_folders_that_cannot_be_made_give_one_line(tmp_path, presets):
+    # Found by hand: a population whose folders cannot even be looked at (a name over the 255-byte
+    # limit of Linux file systems) ended with a traceback instead of the runs' own one-line error.
+    sweep = tmp_path / "sweep"
+    proc = run_script("train", "sweep=tiny_targets", "launcher=population", f"hydra.sweep.dir={sweep}",
+                      "hydra.sweep.subdir=${hydra.job.num}" + "x" * 300, cwd=tmp_path, env=presets, timeout=300)  # fmt: skip
+    assert_one_line_error(proc, "cannot use run folder", "File name too long", "4 sweep members failed")
