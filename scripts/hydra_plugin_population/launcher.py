@@ -67,7 +67,8 @@ def _distinct_folders(points: Sequence[Point]) -> None:
 class PopulationLauncher(JoblibLauncher):
     """Hydra's joblib launcher, launching populations of sweep points instead of single points.
 
-    Hydra's job callbacks (``hydra.callbacks``) are not called for members: Kiln configures none.
+    Hydra's job callbacks (``hydra.callbacks``) and ``hydra.job.env_set`` are not applied to members:
+    Kiln sets neither, and members sharing a process could not have environments of their own.
     """
 
     def setup(self, *, hydra_context: HydraContext, task_function: TaskFunction, config: DictConfig) -> None:
@@ -83,6 +84,8 @@ class PopulationLauncher(JoblibLauncher):
         """
         setup_globals()
         assert self.config is not None and self.hydra_context is not None
+        if not job_overrides:
+            return []
         configure_log(self.config.hydra.hydra_logging, self.config.hydra.verbose)
         launcher_cfg = HydraConfig.instance().cfg
         try:
@@ -145,8 +148,8 @@ class PopulationLauncher(JoblibLauncher):
         if stopped:
             code = outcomes[stopped[0]].exit_code
             reason = {130: "SIGINT", 143: "SIGTERM"}.get(code, "a stop request")
-            fail(f"{reason}: the sweep stopped with {len(stopped)} of {len(points)} members unfinished, each "
-                 "checkpointed where it was; run the same command again to resume them (finished members are skipped)",
+            fail(f"{reason}: the sweep stopped with {len(stopped)} of {len(points)} members unfinished (those that had "
+                 "begun wrote a checkpoint); run the same command again to resume them (finished members are skipped)",
                  code, "stopped")  # fmt: skip
         if failed:
             first = outcomes[failed[0]]

@@ -61,8 +61,14 @@ class PopulationStop(StopRequest):
         """Look for the launcher and its stop note once (the watch does this every ``POLL_S``)."""
         if launcher_gone(self.launcher_pid):
             self.request("parent gone")
-        elif self.note.exists():
-            self.request(self.note.read_text().strip() or "SIGTERM")
+            return
+        try:
+            reason = self.note.read_text().strip()
+        except FileNotFoundError:
+            return  # no note: nobody asked to stop
+        except OSError:
+            reason = ""  # a note that cannot be read still asks for a stop
+        self.request(reason or "SIGTERM")
 
     @contextlib.contextmanager
     def held(self) -> Iterator[PopulationStop]:
@@ -70,8 +76,13 @@ class PopulationStop(StopRequest):
 
         def on_signal(signum: int, frame: FrameType | None) -> None:
             self.request(signal.Signals(signum).name)
+            # With one worker, joblib trains in the launcher itself: its populations still waiting
+            # must learn of the stop too, from the launcher's note.
+            if getattr(previous.get(signum), "writes_stop_note", False):
+                previous[signum](signum, frame)  # type: ignore[operator]
 
-        previous = {sig: signal.signal(sig, on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
+        previous: dict[int, object] = {}
+        previous.update({sig: signal.signal(sig, on_signal) for sig in (signal.SIGINT, signal.SIGTERM)})
         done = threading.Event()
 
         def watch() -> None:
@@ -113,6 +124,7 @@ class StopNote:
                 partial.write_text(self.reason)
                 os.replace(partial, self.note)
 
+        on_signal.writes_stop_note = True  # type: ignore[attr-defined]  # see PopulationStop.held
         previous = {sig: signal.signal(sig, on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
         try:
             yield self

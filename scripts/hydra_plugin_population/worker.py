@@ -66,6 +66,8 @@ def train_members(raw_configs: Sequence[dict[str, Any]], run_dirs: Sequence[Path
     stop = PopulationStop(launcher_pid, note)
     with stop.held():
         try:
+            if stop.requested:  # handed out after the launcher was stopped: leave its folders untouched
+                raise RunStopped(f"{stop.reason} before the population started", stop.exit_code)
             ended: list[Any] = list(train_population(raw_configs, run_dirs, stop))
         except RunStopped as err:
             ended = _all_ended(run_dirs, "stopped", str(err), err.exit_code)

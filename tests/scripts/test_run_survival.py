@@ -339,3 +339,29 @@ def test_population_workers_stop_with_their_launcher_and_the_same_command_resume
     events.Reload()
     logged = [e.step for e in events.Scalars("speed/env_steps_per_s")]
     assert logged == sorted(set(logged)), "a step was logged twice"
+
+
+@pytest.mark.parametrize("slots", [1, 2], ids=["in-launcher", "worker-processes"])
+def test_populations_not_yet_begun_stay_untouched_when_the_sweep_is_stopped(tmp_path, slots):
+    # One more population than slots (agent.actor.lr is not a member key: each value is a population
+    # of its own); with one slot joblib trains in the launcher process itself. Found by hand: a
+    # population handed out after the stop began training (one step and a checkpoint) anyway.
+    lrs = ["0.0003", "0.0004", "0.0005"][: slots + 1]
+    sweep = tmp_path / "sweep"
+    launcher = subprocess.Popen(
+        [sys.executable, str(REPO / "scripts" / "train.py"), "-m", f"agent.actor.lr={','.join(lrs)}", *POPULATION_RUN,
+         "+launcher=population", f"hydra.launcher.n_jobs={slots}", f"hydra.sweep.dir={sweep}",
+         "hydra.sweep.subdir=lr${agent.actor.lr}"],
+        cwd=tmp_path, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True, start_new_session=True,
+    )  # fmt: skip
+    deadline = time.monotonic() + 240
+    while len(list(sweep.glob("*/checkpoints/step-*"))) < slots:
+        assert launcher.poll() is None and time.monotonic() < deadline, launcher.communicate()
+        time.sleep(0.1)
+    launcher.send_signal(signal.SIGTERM)
+    _, stderr = launcher.communicate(timeout=120)
+    lines = [line for line in stderr.splitlines() if line.strip()]
+    assert launcher.returncode == 143 and len(lines) == 1, stderr
+    assert lines[0].startswith(f"kiln: stopped: SIGTERM: the sweep stopped with {slots + 1} of {slots + 1} members unfinished")
+    begun = sorted(p.name for p in sweep.iterdir() if p.is_dir())
+    assert begun == [f"lr{lr}" for lr in lrs[:slots]]
