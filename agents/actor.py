@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+import numpy as np
 import torch
 import torch.nn.functional as F
 from torch import nn
@@ -37,6 +38,7 @@ class SquashedGaussianActor(nn.Module):
         nonlinearity: Name of the hidden nonlinearity (see :data:`agents.nets.NONLINEARITIES`).
         log_std_soft_limits: ``(low, high)`` for the log standard deviation of ``u``.
         generator: Source of the initial weights (owned by the run).
+        population: Number of agents (one actor each, stacked on the leading axis).
     """
 
     def __init__(
@@ -47,6 +49,7 @@ class SquashedGaussianActor(nn.Module):
         nonlinearity: str,
         log_std_soft_limits: tuple[float, float],
         generator: torch.Generator | None = None,
+        population: int = 1,
     ) -> None:
         super().__init__()
         low, high = float(log_std_soft_limits[0]), float(log_std_soft_limits[1])
@@ -56,24 +59,47 @@ class SquashedGaussianActor(nn.Module):
         self.layer_widths, self.nonlinearity = tuple(int(h) for h in layer_widths), nonlinearity
         self.log_std_low, self.log_std_high = low, high
         # One network with 2·act_dim outputs: the first half is the mean, the second the raw log-std.
-        self.body = EnsembleMLP(1, obs_dim, layer_widths, 2 * act_dim, nonlinearity, generator)
+        self.population = population
+        self.body = EnsembleMLP(population, obs_dim, layer_widths, 2 * act_dim, nonlinearity, generator)
 
     def forward(self, obs: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
-        """Return ``(mean, log_std)`` of ``u``, each ``[B, act_dim]``."""
-        out = self.body(obs)[0]
+        """Return ``(mean, log_std)`` of ``u``: each ``[B, act_dim]`` for ``obs`` ``[B, obs_dim]`` (one
+        agent), or ``[population, B, act_dim]`` for ``obs`` ``[population, B, obs_dim]``."""
+        out = self.body(obs)
+        if obs.dim() == 2:
+            out = out[0]
         mean, raw = out.chunk(2, dim=-1)
         return mean, soft_clamp(raw, self.log_std_low, self.log_std_high)
 
     def sample(
-        self, obs: torch.Tensor, generator: torch.Generator | None = None
+        self, obs: torch.Tensor, generator: torch.Generator | Sequence[torch.Generator] | None = None
     ) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor]:
-        """Reparameterised action in (−1, 1), its per-dimension log-density, and the log-std."""
+        """Reparameterised action in (−1, 1), its per-dimension log-density, and the log-std.
+
+        For ``obs`` ``[population, B, obs_dim]`` pass one generator per agent: each agent's noise
+        comes from its own run's generator, as it would in a run of its own.
+        """
         mean, log_std = self(obs)
-        action, log_prob = squashed_gaussian.sample(mean, log_std, generator)
+        if isinstance(generator, Sequence):
+            noise = torch.stack([torch.randn(mean.shape[1:], generator=g) for g in generator])
+            action, log_prob = squashed_gaussian.transform(mean, log_std, noise)
+        else:
+            action, log_prob = squashed_gaussian.sample(mean, log_std, generator)
         return action, log_prob, log_std
 
-    @torch.no_grad()
+    @torch.inference_mode()
     def deterministic(self, obs: torch.Tensor) -> torch.Tensor:
-        """The policy's mode in u-space, squashed: ``tanh(mean)``."""
-        mean, _ = self(obs)
-        return torch.tanh(mean)
+        """The policy's mode in u-space, squashed: ``tanh(mean)`` (the log-std head is not needed)."""
+        out = self.body(obs)
+        if obs.dim() == 2:
+            out = out[0]
+        return torch.tanh(out[..., : self.act_dim])
+
+    @torch.inference_mode()
+    def act_batch(self, obs: np.ndarray, deterministic: bool, generator: torch.Generator | None = None) -> np.ndarray:
+        """Actions in (−1, 1) for observations ``[n, obs_dim]``: ``tanh(mean)``, or samples drawn from
+        ``generator``. The one way evaluation acts, in training and in the evaluate command alike."""
+        x = torch.as_tensor(np.asarray(obs), dtype=torch.float32)
+        if deterministic:
+            return self.deterministic(x).numpy()
+        return self.sample(x, generator)[0].numpy()

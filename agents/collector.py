@@ -131,6 +131,8 @@ class Collector:
 
 
 def _check_finite(values: Any, quantity: str, step: int | None) -> None:
+    if np.isfinite(values).all():
+        return
     array = np.asarray(values, dtype=np.float64)
     if not np.all(np.isfinite(array)):
         bad = array[~np.isfinite(array)].ravel()[0]

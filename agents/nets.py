@@ -2,8 +2,8 @@
 
 The twin soft Q-networks are one module whose weights carry a leading axis of size ``members``;
 a forward pass is one batched matmul per layer instead of a Python loop over networks. The actor
-is the same module with ``members = 1``, so that population training can later add agents along
-the same axis without new code.
+is the same module with ``members = 1``; a population of K agents stacks its agents along the same
+axis (K actors, K·count critics), so one batched matmul per layer serves every agent.
 """
 
 from __future__ import annotations
@@ -40,16 +40,26 @@ class EnsembleLinear(nn.Module):
 
     def reset_parameters(self, generator: torch.Generator | None = None) -> None:
         """Initialise each member as torch's ``nn.Linear`` would (uniform ±1/√fan_in), from ``generator``."""
+        self.reset_rows(slice(None), generator)
+
+    def reset_rows(self, rows: slice, generator: torch.Generator | None) -> None:
+        """Initialise the members ``rows`` (weights, then biases) from ``generator``: how a population
+        gives each agent the weights a single run of that agent's seed starts from."""
         bound = 1.0 / math.sqrt(self.in_features)
         with torch.no_grad():
             # Same distribution as nn.Linear's default (kaiming_uniform with a=√5 gives ±1/√fan_in).
-            self.weight.uniform_(-bound, bound, generator=generator)
-            self.bias.uniform_(-bound, bound, generator=generator)
+            self.weight[rows].uniform_(-bound, bound, generator=generator)
+            self.bias[rows].uniform_(-bound, bound, generator=generator)
 
     def forward(self, x: torch.Tensor) -> torch.Tensor:
         if x.dim() == 2:
             # [B, in] @ [M, in, out] broadcasts to [M, B, out] without copying x M times.
             return torch.matmul(x, self.weight) + self.bias
+        if self.out_features == 1:
+            # A batched matrix-vector product is a degenerate GEMM that runs far below the machine's
+            # rate; multiply-and-sum is the same arithmetic and measured 1.1x (2×256) to 1.9x (16×64)
+            # faster forward + backward (contributor guide, Benchmark).
+            return (x * self.weight.transpose(1, 2)).sum(dim=-1, keepdim=True) + self.bias
         return torch.baddbmm(self.bias, x, self.weight)
 
     def extra_repr(self) -> str:
@@ -82,4 +92,17 @@ class EnsembleMLP(nn.Module):
 
     def forward(self, x: torch.Tensor) -> torch.Tensor:
         """Map ``[B, in]`` or ``[members, B, in]`` to ``[members, B, out]``."""
-        return self.layers(x)
+        # The layers' forward directly, not through nn.Module.__call__: Kiln installs no hooks, and the
+        # call machinery costs a few µs per layer, several percent of a small network's update.
+        for layer in self.layers:
+            x = layer.forward(x)
+        return x
+
+    def linears(self) -> list[EnsembleLinear]:
+        """The affine layers, input first."""
+        return [m for m in self.layers if isinstance(m, EnsembleLinear)]
+
+    def reset_rows(self, rows: slice, generator: torch.Generator | None) -> None:
+        """Initialise members ``rows`` layer by layer, in the order construction does."""
+        for layer in self.linears():
+            layer.reset_rows(rows, generator)

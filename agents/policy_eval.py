@@ -117,18 +117,21 @@ def evaluate_policy(
     """
     env_spec = policy.spec["env"]
     check_task_module(env_spec["id"], task_module)
-    env = make_env(TaskSpec.from_record(env_spec), render_mode="rgb_array" if video_dir is not None else None)
-    obs_shape = tuple(policy.spec["observation_space"]["shape"])
-    if env.observation_space.shape != obs_shape:
-        raise KilnError(
-            f"the task {env_spec['id']} now has observations of shape {env.observation_space.shape}, "
-            f"the policy expects {obs_shape}: evaluate with the Gymnasium version it was trained with"
-        )
-    if video_dir is not None:
-        env = _with_video(env, Path(video_dir))
-    generator = torch.Generator().manual_seed(plan.sampling_seed)
+    render_mode = "rgb_array" if video_dir is not None else None
+    # One copy of the task per episode: the episodes run side by side, as training evaluates.
+    envs = [make_env(TaskSpec.from_record(env_spec), render_mode=render_mode)]
     try:
-        result = run_episodes(env, lambda o: policy.act(o, deterministic, generator), plan.reset_seeds)
+        obs_shape = tuple(policy.spec["observation_space"]["shape"])
+        if envs[0].observation_space.shape != obs_shape:
+            raise KilnError(
+                f"the task {env_spec['id']} now has observations of shape {envs[0].observation_space.shape}, "
+                f"the policy expects {obs_shape}: evaluate with the Gymnasium version it was trained with"
+            )
+        envs += [make_env(TaskSpec.from_record(env_spec), render_mode=render_mode) for _ in plan.reset_seeds[1:]]
+        if video_dir is not None:
+            envs = _with_video(envs, Path(video_dir), plan.reset_seeds)
+        generator = torch.Generator().manual_seed(plan.sampling_seed)
+        result = run_episodes(envs, lambda o: policy.act_batch(o, deterministic, generator), plan.reset_seeds)
     except gym.error.DependencyNotInstalled as err:
         raise KilnError(f"video needs a renderer that is not installed ({err}): pip install 'kiln-sac[video]'") from None
     except OSError as err:
@@ -143,16 +146,22 @@ def evaluate_policy(
             ) from None
         raise
     finally:
-        env.close()
+        for env in envs:
+            env.close()
     return {"episode_list": [e.record() for e in result], "summary": summarise(result)}
 
 
-def _with_video(env: gym.Env, folder: Path) -> gym.Env:
+def _with_video(envs: list[gym.Env], folder: Path, seeds: list[int]) -> list[gym.Env]:
+    """Each episode's env recording to ``rollout-seed<seed>-episode-0.mp4`` in ``folder``."""
     try:
         import moviepy  # noqa: F401  (Gymnasium's recorder needs it; check before any episode runs)
     except ImportError:
-        env.close()
+        for env in envs:
+            env.close()
         raise KilnError("video needs moviepy: pip install 'kiln-sac[video]', or drop video") from None
     from gymnasium.wrappers import RecordVideo
 
-    return RecordVideo(env, str(folder), episode_trigger=lambda _: True, name_prefix="rollout", disable_logger=True)
+    return [
+        RecordVideo(env, str(folder), episode_trigger=lambda _: True, name_prefix=f"rollout-seed{seed}", disable_logger=True)
+        for env, seed in zip(envs, seeds)
+    ]

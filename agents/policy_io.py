@@ -62,6 +62,10 @@ class SavedPolicy:
             a, _, _ = self.actor.sample(x, generator)
         return self.scale.to_env(a[0].numpy())
 
+    def act_batch(self, obs: np.ndarray, deterministic: bool = True, generator: torch.Generator | None = None) -> np.ndarray:
+        """Actions in the task's units for observations ``[n, obs_dim]`` (see ``SquashedGaussianActor.act_batch``)."""
+        return self.scale.to_env(self.actor.act_batch(obs, deterministic, generator))
+
 
 def _linear_layers(actor: SquashedGaussianActor) -> list[EnsembleLinear]:
     return [m for m in actor.body.layers if isinstance(m, EnsembleLinear)]

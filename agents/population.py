@@ -13,7 +13,7 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-from agents.errors import ConfigError, DivergenceError, KilnError
+from agents.errors import ConfigError, KilnError
 from agents.run_folder import RunResult
 from agents.stop import StopRequest
 
@@ -65,7 +65,7 @@ def check_population(raw_configs: Sequence[Mapping[str, Any]], run_dirs: Sequenc
 def train_population(
     raw_configs: Sequence[Mapping[str, Any]], run_dirs: Sequence[Path], stop: StopRequest | None = None
 ) -> list[RunResult | KilnError]:
-    """Train every member; each gets exactly what :func:`agents.trainer.train` would give it alone.
+    """Train every member in one loop: one agent with a leading member axis, one env per member.
 
     A member whose folder holds a finished run is skipped (its result returned); an unfinished one
     resumes from its checkpoint. A member that diverges stops there and its error takes its place in
@@ -75,13 +75,7 @@ def train_population(
         ConfigError: If the members cannot share a population (see :func:`check_population`), or a config is invalid.
         RunFolderError, CheckpointError, RunStopped: As :func:`agents.trainer.train`, for the population as a whole.
     """
-    from agents.trainer import train
+    from agents.trainer import train_members
 
     check_population(raw_configs, run_dirs)
-    outcomes: list[RunResult | KilnError] = []
-    for raw, run_dir in zip(raw_configs, run_dirs):
-        try:
-            outcomes.append(train(raw, Path(run_dir), stop))
-        except DivergenceError as err:
-            outcomes.append(err)
-    return outcomes
+    return list(train_members(raw_configs, run_dirs, stop))

@@ -185,25 +185,58 @@ class EpisodeSummary:
         return {"seed": self.seed, "return": self.return_, "length": self.length, "terminated": self.terminated}
 
 
+class _Lockstep:
+    """Single envs, one per reset seed, seen as one batch: each is reset with its own seed and stepped
+    until its own episode ends (then left alone), so every episode is exactly the one a lone env of
+    that seed would run, while the policy acts on all observations at once."""
+
+    def __init__(self, envs: Sequence[gym.Env], seeds: Sequence[int]) -> None:
+        self.envs, self.seeds = list(envs), list(seeds)
+        self.done = np.zeros(len(self.envs), dtype=bool)
+        self.last: list[np.ndarray] = []
+
+    def reset(self, *, seed: int) -> tuple[np.ndarray, dict[str, Any]]:
+        self.last = [np.asarray(env.reset(seed=s)[0]) for env, s in zip(self.envs, self.seeds)]
+        self.done[:] = False
+        return np.stack(self.last), {}
+
+    def step(self, actions: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, dict[str, Any]]:
+        n = len(self.envs)
+        reward, terminated, truncated = np.zeros(n), np.ones(n, dtype=bool), np.ones(n, dtype=bool)
+        for i, env in enumerate(self.envs):
+            if self.done[i]:
+                continue  # an ended episode's row stays as it was; the rollout masks it out
+            obs, reward[i], terminated[i], truncated[i], _ = env.step(actions[i])
+            self.last[i] = np.asarray(obs)
+            self.done[i] = terminated[i] or truncated[i]
+        return np.stack(self.last), reward, terminated, truncated, {}
+
+
 def run_episodes(
-    env: gym.Env, policy: Callable[[np.ndarray], np.ndarray], seeds: Sequence[int]
+    envs: Sequence[gym.Env], policy: Callable[[np.ndarray], np.ndarray], seeds: Sequence[int]
 ) -> list[EpisodeSummary]:
-    """Run one evaluation episode per reset seed.
+    """Run one evaluation episode per reset seed, side by side.
+
+    Episode i runs in ``envs[i]`` from reset seed ``seeds[i]``; the policy is called once per step for
+    the observations of all episodes (``[episodes, obs_dim]`` → actions ``[episodes, act_dim]``, rows of
+    ended episodes included, so every call has the same shape and a given set of seeds always gives
+    the same numbers). Training's evaluations and the evaluate command both evaluate this way.
 
     Args:
-        env: The task.
-        policy: Maps an observation to an action in the task's units.
+        envs: One copy of the task per seed.
+        policy: Maps observations to actions in the task's units, row by row.
         seeds: Reset seeds, one per episode.
 
     Returns:
         One summary per episode, in seed order.
     """
-    out = []
-    for seed in seeds:
-        episode = rollout_episode(env, lambda obs: (policy(obs), 0.0), seed)
-        ended = (float(episode.returns[0]), int(episode.lengths[0]), bool(episode.terminated[0]))
-        out.append(EpisodeSummary(seed, *ended))
-    return out
+    if len(envs) != len(seeds):
+        raise ValueError(f"one env per episode: got {len(envs)} envs for {len(seeds)} seeds")
+    recorded = rollout(_Lockstep(envs, seeds), lambda obs: (policy(obs), np.zeros(len(seeds))), seed=0)
+    return [
+        EpisodeSummary(seed, float(ret), int(length), bool(term))
+        for seed, ret, length, term in zip(seeds, recorded.returns, recorded.lengths, recorded.terminated)
+    ]
 
 
 def summarise(episodes: Sequence[EpisodeSummary]) -> dict[str, float]:
@@ -224,7 +257,7 @@ def summarise(episodes: Sequence[EpisodeSummary]) -> dict[str, float]:
 
 
 def q_minus_return(
-    agent: SoftActorCritic, env: gym.Env, scale: ActionScale, seeds: Sequence[int], generator: torch.Generator
+    agent: SoftActorCritic, envs: Sequence[gym.Env], scale: ActionScale, seeds: Sequence[int], generator: torch.Generator
 ) -> float:
     """Mean over episodes of Q(s₀, a₀) − Ĝ₀, with episodes run by the *stochastic* policy.
 
@@ -236,8 +269,9 @@ def q_minus_return(
     beyond the limit, which biases the figure upward by at most γ^T times the soft value there.
 
     Args:
-        agent: Provides ``act_with_bonus`` (a sample in (−1, 1) and α·log π), ``soft_q`` and the discount.
-        env: The task.
+        agent: Provides ``act_with_bonus`` (samples in (−1, 1) and α·log π for a batch of observations),
+            ``soft_q`` (for a batch of state-actions) and the discount.
+        envs: At least one copy of the task per episode (the episodes run side by side).
         scale: Maps the agent's actions to the task's units.
         seeds: Reset seeds, one per episode.
         generator: Source of the policy's samples.
@@ -245,12 +279,10 @@ def q_minus_return(
     Returns:
         The mean gap.
     """
-    gaps = []
-    for seed in seeds:
-        episode = rollout_episode(env, lambda obs: agent.act_with_bonus(obs, generator), seed, scale.to_env)
-        q0 = agent.soft_q(episode.starts[0], episode.first_actions[0])
-        gaps.append(q0 - float(episode.soft_returns(agent.settings.discount, first_entropy=False)[0]))
-    return float(np.mean(gaps))
+    batch = _Lockstep(list(envs)[: len(seeds)], seeds)
+    episodes = rollout(batch, lambda obs: agent.act_with_bonus(obs, generator), 0, scale.to_env)
+    q0 = np.asarray(agent.soft_q(episodes.starts, episodes.first_actions), dtype=np.float64)
+    return float(np.mean(q0 - episodes.soft_returns(agent.settings.discount, first_entropy=False)))
 
 
 def soft_returns(

@@ -58,8 +58,8 @@ def test_minus_action_dims_target_entropy_is_minus_action_dimension(act_dim):
 
 
 def test_optimisers_are_adam_and_twin_critics():
-    agent = SoftActorCritic(3, 1, AgentSettings(), (-1.0,), torch.Generator().manual_seed(0))
+    agent = SoftActorCritic.single(3, 1, AgentSettings(), (-1.0,), torch.Generator().manual_seed(0))
     for opt in (agent.actor_opt, agent.critic_opt, agent.temperature_opt):
         assert isinstance(opt, torch.optim.Adam)
         assert opt.param_groups[0]["lr"] == 3e-4
-    assert agent.critic.members == 2
+    assert agent.critic.members == 2 and agent.population == 1

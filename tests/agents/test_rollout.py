@@ -82,7 +82,7 @@ def test_batch_masks_steps_after_each_copy_ends():
 
 def test_evaluation_summary_by_hand():
     env = gym.wrappers.TimeLimit(_UnitReward(end=4), max_episode_steps=6)
-    (first,) = run_episodes(env, lambda obs: np.zeros(1, np.float32), [7])
+    (first,) = run_episodes([env], lambda obs: np.zeros((len(obs), 1), np.float32), [7])
     assert first == EpisodeSummary(seed=7, return_=4.0, length=4, terminated=True)
     assert first.record() == {"seed": 7, "return": 4.0, "length": 4, "terminated": True}
     others = [EpisodeSummary(1, 2.0, 2, False), EpisodeSummary(2, 6.0, 6, False)]
@@ -100,12 +100,12 @@ def test_q_minus_return_by_hand():
     # so the bias is 5 − 2.368 = 2.632 (the entropy term of a₀ is not part of Q(s₀, a₀)).
     agent = SimpleNamespace(
         settings=SimpleNamespace(discount=0.9),
-        act_with_bonus=lambda obs, generator: (np.zeros(1, np.float32), 0.2),
-        soft_q=lambda obs, action: 5.0,
+        act_with_bonus=lambda obs, generator: (np.zeros((len(obs), 1), np.float32), np.full(len(obs), 0.2)),
+        soft_q=lambda obs, action: np.full(len(obs), 5.0),
     )
-    env = gym.wrappers.TimeLimit(_UnitReward(), max_episode_steps=3)
+    envs = [gym.wrappers.TimeLimit(_UnitReward(), max_episode_steps=3) for _ in range(2)]
     scale = ActionScale(np.array([-1.0]), np.array([1.0]))
-    assert q_minus_return(agent, env, scale, [0, 1], torch.Generator()) == pytest.approx(2.632)
+    assert q_minus_return(agent, envs, scale, [0, 1], torch.Generator()) == pytest.approx(2.632)
 
 
 def test_soft_returns_of_the_exact_optimum_match_the_closed_form():
@@ -128,3 +128,14 @@ def test_soft_returns_of_the_exact_optimum_match_the_closed_form():
     assert abs(excess.mean()) < 4 * stderr
     assert stderr < 0.02  # the control variate V*(x₀) keeps the check sharp
     np.testing.assert_allclose(starts.std(axis=0), 1.0, atol=0.05)  # x₀ ~ N(0, I): start_std = 1
+
+
+def test_episodes_side_by_side_are_the_episodes_of_lone_envs():
+    # Each evaluation episode runs in its own env from its own seed; stepping them in lockstep must give
+    # exactly what one env per seed, run alone, gives (Pendulum-v1's dynamics, seeded by Gymnasium).
+    seeds = [11, 12, 13]
+    policy = lambda obs: np.clip(-obs[:, 2:3] * 0.5, -2.0, 2.0).astype(np.float32)  # row by row
+    together = run_episodes([gym.make("Pendulum-v1") for _ in seeds], policy, seeds)
+    for seed, episode in zip(seeds, together):
+        alone = rollout_episode(gym.make("Pendulum-v1"), lambda o: (policy(o[None])[0], 0.0), seed)
+        assert episode == EpisodeSummary(seed, float(alone.returns[0]), int(alone.lengths[0]), False)

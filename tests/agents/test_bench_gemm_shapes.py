@@ -1,0 +1,61 @@
+"""The benchmark's list of an update's matrix products against torch.utils.flop_counter.FlopCounterMode
+(PyTorch's own FLOP counter, run over a real update) and against hand arithmetic."""
+
+import pytest
+from torch.utils.flop_counter import FlopCounterMode
+
+from agents.bench.cases import DEFAULT, SMALL
+from agents.bench.gemm_shapes import Gemm, merge, total_flops, update_gemms
+from agents.bench.update_speed import build_agent, random_batch
+from agents.presets import compose_config
+
+
+def test_hand_arithmetic_on_a_tiny_network():
+    # obs 2, act 1, one hidden layer of 3, batch 4, 2 critics; 2 FLOPs per multiply-add.
+    # Actor layers 2→3, 3→2 (mean and log-std): 12 MACs a row, 96 FLOPs a forward pass of 4 rows.
+    #   2 forwards (192) + weight gradients (96) + input gradient of the second layer (3·2·4·2 = 48) = 336.
+    # Critic layers 3→3, 3→1: 12 MACs a row, 96 FLOPs a pass per member, 192 for both.
+    #   3 forwards (576) + weight gradients (192) + critic step's input gradient of the last layer
+    #   (3·4·2·2 = 48) + actor step's input gradients of every layer (192) = 1008.
+    assert total_flops(update_gemms(2, 1, (3,), 4, 2)) == 336 + 1008
+
+
+@pytest.mark.parametrize(
+    "case,population", [(DEFAULT, 1), (SMALL, 1), (SMALL, 8)], ids=["default", "small", "small-population-8"]
+)
+def test_flops_match_torch_flop_counter_over_a_real_update(case, population):
+    # Reference: torch.utils.flop_counter.FlopCounterMode counts 2·m·k·n per (batched) matmul that
+    # autograd and the forward pass actually run (mm, bmm, addmm, baddbmm, matmul's decompositions).
+    agent = build_agent(case.obs_dim, case.act_dim, case.settings(), population=population)
+    batch = random_batch(case.obs_dim, case.act_dim, case.batch_size, population=population)
+    agent.update(batch)  # the first update creates the optimisers' state; count a later one
+    counter = FlopCounterMode(display=False)
+    with counter:
+        agent.update(batch)
+    expected = counter.get_total_flops()
+    gemms = update_gemms(case.obs_dim, case.act_dim, case.layer_widths, case.batch_size, case.critics, population)
+    assert total_flops(gemms) == expected
+
+
+def test_population_multiplies_every_product_by_the_member_count():
+    # Hand arithmetic: K independent agents do K times the work of one, shape for shape.
+    one = update_gemms(3, 1, (64, 64), 256, 2)
+    eight = update_gemms(3, 1, (64, 64), 256, 2, population=8)
+    assert total_flops(eight) == 8 * total_flops(one)
+    assert [g.members for g in eight] == [8 * g.members for g in one]
+
+
+def test_merge_folds_repeats_into_counts():
+    # Hand arithmetic: two identical products and one other → counts 2 and 1, FLOPs unchanged.
+    a, b = Gemm(2, 256, 64, 64), Gemm(1, 256, 3, 64)
+    merged = merge([a, b, a])
+    assert {(g.members, g.k, g.count) for g in merged} == {(2, 64, 2), (1, 3, 1)}
+    assert total_flops(merged) == total_flops([a, b, a])
+
+
+def test_small_case_is_the_pendulum_preset():
+    # Project requirement (no outside source): the benchmark's small size is the Pendulum-v1 preset's network.
+    raw = compose_config("train", ["env=pendulum"])
+    assert tuple(raw["agent"]["layer_widths"]) == SMALL.layer_widths
+    assert raw["agent"]["batch_size"] == SMALL.batch_size == DEFAULT.batch_size
+    assert raw["agent"]["critic"]["count"] == SMALL.critics
