@@ -3,7 +3,7 @@
 Selected by ``configs/launcher/population.yaml`` (``kiln train sweep=target_entropy launcher=population``).
 The plain joblib launcher runs one job per sweep point; this one composes every point first (as
 the joblib launcher would, :mod:`.points`), groups the points that can share a process
-(``agents.population.population_key``), cuts the groups into at most ``n_jobs`` balanced
+(``agents.population.population_key``, and on a re-run the checkpoint each would resume from), cuts the groups into at most ``n_jobs`` balanced
 populations (:mod:`.grouping`) and trains each population in one loky worker (:mod:`.worker`). Each
 member writes the folder the joblib launcher would have given its point, and Hydra gets one job
 record per point, in the sweep's order.
@@ -33,7 +33,7 @@ from omegaconf import DictConfig
 from agents.errors import ConfigError
 from agents.population import population_key
 from hydra_plugins.kiln_population_launcher.grouping import split_points
-from hydra_plugins.kiln_population_launcher.points import Point, compose_point
+from hydra_plugins.kiln_population_launcher.points import Point, compose_point, resume_mark
 from hydra_plugins.kiln_population_launcher.settings import worker_count
 from hydra_plugins.kiln_population_launcher.stop import StopNote
 from hydra_plugins.kiln_population_launcher.worker import Outcome, train_members
@@ -96,7 +96,7 @@ class PopulationLauncher(JoblibLauncher):
         finally:
             HydraConfig.instance().cfg = launcher_cfg  # the launcher's own config again, as before
         guarded(lambda: _distinct_folders(points))
-        populations = split_points([population_key(p.raw) for p in points], self.slots)
+        populations = split_points([f"{population_key(p.raw)} {resume_mark(p)}" for p in points], self.slots)
         sweep_dir = Path(str(self.config.hydra.sweep.dir))
         sweep_dir.mkdir(parents=True, exist_ok=True)
         self._log_plan(points, populations, sweep_dir)

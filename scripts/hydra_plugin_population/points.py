@@ -21,6 +21,9 @@ from hydra.core.utils import JobReturn, JobStatus
 from hydra.types import HydraContext
 from omegaconf import DictConfig, OmegaConf, open_dict, read_write
 
+from agents.checkpoint import CheckpointStore
+from agents.run_folder import RunFolder
+
 
 @dataclass
 class Point:
@@ -79,3 +82,21 @@ def compose_point(hydra_context: HydraContext, master: DictConfig, overrides: Se
         num=num, overrides=list(overrides), raw=raw, run_dir=Path(config.hydra.runtime.output_dir),
         task_cfg=task_cfg, hydra_cfg=copy.deepcopy(HydraConfig.instance().cfg),
     )  # fmt: skip
+
+
+def resume_mark(point: Point) -> str:
+    """The checkpoint the point's run would continue from (its name), or ``""`` if it starts afresh
+    or is finished.
+
+    A population resumes all its members from one common step, so members stopped at different
+    steps (or stopped beside members not yet begun, as a sweep stopped under another launcher
+    leaves them) must not share a population: the launcher groups points by this mark too.
+    """
+    folder = RunFolder(point.run_dir)
+    try:
+        if not point.raw.get("resume", True) or folder.is_finished():
+            return ""
+        latest = CheckpointStore(folder.checkpoints_path, keep=1).latest()  # read only: keep is not used
+    except OSError:  # a folder that cannot be read: the run itself will say why
+        return ""
+    return latest.name if latest is not None else ""

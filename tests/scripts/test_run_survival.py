@@ -365,3 +365,23 @@ def test_populations_not_yet_begun_stay_untouched_when_the_sweep_is_stopped(tmp_
     assert lines[0].startswith(f"kiln: stopped: SIGTERM: the sweep stopped with {slots + 1} of {slots + 1} members unfinished")
     begun = sorted(p.name for p in sweep.iterdir() if p.is_dir())
     assert begun == [f"lr{lr}" for lr in lrs[:slots]]
+
+
+def test_members_stopped_elsewhere_resume_in_a_population_beside_members_not_begun(tmp_path):
+    # Found by hand: the population loop resumes its members from one common checkpoint step, so a
+    # member stopped earlier (here as a single run; alike for a joblib sweep stopped half-way) could
+    # not share a population with one that had not begun: the re-run was refused.
+    sweep = tmp_path / "sweep"
+    single = subprocess.Popen(
+        [sys.executable, str(REPO / "scripts" / "train.py"), "seed=0", *POPULATION_RUN, f"hydra.run.dir={sweep / 's0'}"],
+        cwd=tmp_path, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, text=True,
+    )  # fmt: skip
+    _wait_for_checkpoint(sweep / "s0", single)
+    single.send_signal(signal.SIGTERM)
+    assert single.wait(timeout=120) == 143
+    proc = subprocess.run(_population_sweep(sweep, "0,1") + ["hydra.launcher.n_jobs=1"], cwd=tmp_path,
+                          capture_output=True, text=True, timeout=600)  # fmt: skip
+    assert proc.returncode == 0, proc.stderr
+    for name in ("s0", "s1"):
+        assert json.loads((sweep / name / "result.json").read_text())["steps"] == 1000
+    assert not list((sweep / "s0").glob("unfinished-*"))  # resumed, not started over
