@@ -14,6 +14,11 @@ from pathlib import Path
 
 import hydra
 from hydra.core.hydra_config import HydraConfig
+from hydra.core.override_parser.overrides_parser import OverridesParser
+from hydra.errors import HydraException
+from hydra_plugins.kiln_population_launcher import register as register_population_launcher
+from hydra_plugins.kiln_population_launcher.settings import TARGET as POPULATION_LAUNCHER
+from hydra_plugins.kiln_population_launcher.settings import check_n_jobs, worker_count
 from hydra_plugins.kiln_slurm_launcher import register as register_slurm_launcher
 from omegaconf import DictConfig, OmegaConf
 
@@ -41,6 +46,31 @@ def check_output_folder(args: list[str]) -> None:
     sweeping = "-m" in args or "--multirun" in args or str(hydra_node.mode) == "RunMode.MULTIRUN"
     folder = Path(str(hydra_node.sweep.dir if sweeping else hydra_node.run.dir))
     check_writable(folder, "choose a writable place, e.g. hydra.run.dir=<folder> (hydra.sweep.dir= for a sweep)")
+
+
+def check_launcher_settings(args: list[str]) -> None:
+    """Refuse launcher settings (``hydra.launcher.*``) that Hydra or the launcher would refuse mid-start.
+
+    Hydra reports them with a traceback after writing the sweep's folder; here they end with one line
+    before anything is written.
+
+    Raises:
+        KilnError: One line naming the setting and the fix.
+    """
+    if any(a in ("--help", "-h", "--hydra-help", "--info") or a.startswith("--cfg") or a == "-c" for a in args):
+        return
+    plain = [a for a in args if not a.startswith("-")]
+    launcher = [a for a in plain if a.lstrip("+~").startswith(("hydra.launcher.", "hydra/launcher="))]
+    for arg in launcher:
+        if arg.startswith("hydra.launcher.n_jobs="):
+            try:
+                value = OverridesParser.create().parse_overrides([arg])[0].value()
+            except HydraException:
+                value = arg.split("=", 1)[1]
+            check_n_jobs(value)  # before Hydra's own type error, which names no fix
+    node = compose_node("train", expand_overrides(plain)[0] + launcher, with_hydra=True).hydra.launcher
+    if node.get("_target_") == POPULATION_LAUNCHER:
+        worker_count(node)
 
 
 def report(run_dir: Path, result: RunResult) -> None:
@@ -78,7 +108,10 @@ def main() -> None:
     """Check the command line, then hand it to Hydra."""
     stop_politely_on_sigterm()
     register_slurm_launcher()  # launcher=slurm; an editable install hides it from Hydra's plugin scan
-    guarded(lambda: (check_overrides("train", sys.argv[1:], check_run), check_output_folder(sys.argv[1:]), _hydra_entry()))
+    register_population_launcher()  # launcher=population; the same
+    args = sys.argv[1:]
+    guarded(lambda: (check_overrides("train", args, check_run), check_output_folder(args), check_launcher_settings(args),
+                     _hydra_entry()))  # fmt: skip
 
 
 if __name__ == "__main__":
