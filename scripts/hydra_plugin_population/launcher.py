@@ -3,8 +3,9 @@
 Selected by ``configs/launcher/population.yaml`` (``kiln train sweep=target_entropy launcher=population``).
 The plain joblib launcher runs one job per sweep point; this one composes every point first (as
 the joblib launcher would, :mod:`.points`), groups the points that can share a process
-(``agents.population.population_key``, and on a re-run the checkpoint each would resume from), cuts the groups into at most ``n_jobs`` balanced
-populations (:mod:`.grouping`) and trains each population in one loky worker (:mod:`.worker`). Each
+(``agents.population.population_key``, and on a re-run the checkpoint each would resume from),
+cuts the groups into at most ``n_jobs`` balanced populations (:mod:`.grouping`) and trains each
+population in one loky worker (:mod:`.worker`). Each
 member writes the folder the joblib launcher would have given its point, and Hydra gets one job
 record per point, in the sweep's order.
 
@@ -36,7 +37,7 @@ from hydra_plugins.kiln_population_launcher.grouping import split_points
 from hydra_plugins.kiln_population_launcher.points import Point, compose_point, resume_mark
 from hydra_plugins.kiln_population_launcher.settings import worker_count
 from hydra_plugins.kiln_population_launcher.stop import StopNote
-from hydra_plugins.kiln_population_launcher.worker import Outcome, train_members
+from hydra_plugins.kiln_population_launcher.worker import Outcome, run_population
 from kiln_cli._cli import fail, guarded  # Kiln's one-line errors; the launcher is part of `kiln train`
 
 log = logging.getLogger(__name__)
@@ -126,7 +127,7 @@ class PopulationLauncher(JoblibLauncher):
             with stop.catching(), parallel_config(backend="loky", idle_worker_timeout=IDLE_WORKER_S):
                 try:
                     ended = Parallel(**joblib_cfg)(
-                        delayed(train_members)(
+                        delayed(run_population)(
                             [points[i].raw for i in members], [points[i].run_dir for i in members], os.getpid(), stop.note
                         )
                         for members in populations

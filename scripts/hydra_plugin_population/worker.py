@@ -47,7 +47,9 @@ def _all_ended(run_dirs: Sequence[Path], kind: str, message: str, exit_code: int
     return [_finished(d) or Outcome(kind, message=message, exit_code=exit_code) for d in run_dirs]
 
 
-def train_members(raw_configs: Sequence[dict[str, Any]], run_dirs: Sequence[Path], launcher_pid: int, note: Path) -> list[Outcome]:
+def run_population(
+    raw_configs: Sequence[dict[str, Any]], run_dirs: Sequence[Path], launcher_pid: int, note: Path
+) -> list[Outcome]:
     """Train one population and report each member as ``kiln train`` reports a run.
 
     Args:
@@ -85,9 +87,10 @@ def train_members(raw_configs: Sequence[dict[str, Any]], run_dirs: Sequence[Path
             outcomes.append(Outcome("done", value=float(end.final.return_eval)))
             continue
         # A member's own error (divergence) fails that member only; the others went on.
-        outcome = end if isinstance(end, Outcome) else Outcome("failed", message=str(end), exit_code=getattr(end, "exit_code", 2))
-        if outcome.kind == "failed":
-            print(f"\nrun folder   {run_dir}\nfailed       {outcome.message}")
-        outcomes.append(outcome)
+        if not isinstance(end, Outcome):
+            end = Outcome("failed", message=str(end), exit_code=getattr(end, "exit_code", 2))
+        if end.kind == "failed":
+            print(f"\nrun folder   {run_dir}\nfailed       {end.message}")
+        outcomes.append(end)
     sys.stdout.flush()
     return outcomes

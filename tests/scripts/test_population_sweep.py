@@ -149,6 +149,8 @@ def test_each_member_is_reported_as_a_single_run_is(sweeps):
     for member in _members(population):
         assert f"run folder   {member}\n" in stdout
         assert f"kiln evaluate policy={member}" in stdout
+        # Each member records how many runs shared its process.
+        assert json.loads((member / "result.json").read_text())["population"] == 2
 
 
 def test_rerun_skips_finished_members(sweeps, presets):
@@ -191,6 +193,7 @@ def test_points_that_cannot_share_a_population_train_separately(tmp_path, preset
     for member in members:
         lr = "0.0003" if "agent.actor.lr=0.0003" in member.name else "0.001"
         assert f"lr: {lr}" in (member / "config.yaml").read_text().split("actor:")[1].split("critic:")[0]
+        assert json.loads((member / "result.json").read_text())["population"] == 2
 
 
 def test_a_member_that_diverges_fails_alone_and_ends_the_sweep_as_a_failing_job_does(tmp_path, presets):

@@ -385,3 +385,26 @@ def test_members_stopped_elsewhere_resume_in_a_population_beside_members_not_beg
     for name in ("s0", "s1"):
         assert json.loads((sweep / name / "result.json").read_text())["steps"] == 1000
     assert not list((sweep / "s0").glob("unfinished-*"))  # resumed, not started over
+
+
+def test_a_population_worker_killed_outside_kiln_ends_the_sweep_with_one_line_and_the_same_command_resumes(tmp_path):
+    # As the kernel's out-of-memory killer would: SIGKILL to one worker. The pool then ends the
+    # others too; what was checkpointed stays, and the re-run trains the rest.
+    sweep = tmp_path / "sweep"
+    launcher = subprocess.Popen(_population_sweep(sweep, "0,1,2,3"), cwd=tmp_path, stdout=subprocess.DEVNULL,
+                                stderr=subprocess.PIPE, text=True, start_new_session=True)  # fmt: skip
+    deadline = time.monotonic() + 240
+    while len(list(sweep.glob("*/checkpoints/step-*"))) < 2:
+        assert launcher.poll() is None and time.monotonic() < deadline, launcher.communicate()
+        time.sleep(0.1)
+    workers = _children(launcher.pid)
+    trainers = [pid for pid in workers if "popen_loky" in (Path("/proc") / str(pid) / "cmdline").read_text()]
+    os.kill(trainers[0], signal.SIGKILL)
+    _, stderr = launcher.communicate(timeout=120)
+    lines = [line for line in stderr.splitlines() if line.strip()]
+    assert launcher.returncode == 1 and len(lines) == 1 and "Traceback" not in stderr, stderr
+    assert lines[0].startswith("kiln: error: a population worker ended without reporting")
+    assert "run the same command again" in lines[0]
+    again = subprocess.run(_population_sweep(sweep, "0,1,2,3"), cwd=tmp_path, capture_output=True, text=True, timeout=600)
+    assert again.returncode == 0, again.stderr
+    assert all((sweep / f"s{seed}" / "result.json").is_file() for seed in range(4))
