@@ -29,8 +29,8 @@ def sweep_command(sweep_dir: Path, steps: int | None, population: bool) -> list[
     ]  # fmt: skip
     if steps is not None:
         command.append(f"steps={steps}")
-    if population:
-        command.append("launcher=population")
+    # Both launchers named: the sweep presets default to populations, so the jobs side must ask for local.
+    command.append("launcher=population" if population else "launcher=local")
     return command
 
 

@@ -113,3 +113,10 @@ def test_loop_split_adds_up() -> None:
 )
 def test_speed_ratio_reads_as_faster_or_slower(ratio: float, text: str) -> None:
     assert speed_ratio(ratio) == text
+
+
+def test_jobs_side_of_the_sweep_asks_for_the_local_launcher() -> None:
+    # What the population launcher's author found: with the presets defaulting to populations, a jobs
+    # command without launcher=local measured populations on both sides (project requirement, no source).
+    assert "launcher=local" in sweep_command(Path("/tmp/kiln-bench-check"), 1200, False)
+    assert "launcher=population" in sweep_command(Path("/tmp/kiln-bench-check"), 1200, True)
