@@ -28,7 +28,6 @@ class LogWindow:
 
     def __init__(self, agents: int = 1) -> None:
         self.total_updates, self.total_update_time = 0, 0.0
-        self.agents = agents
         self._sum = torch.zeros(agents, len(UPDATE_TAGS))
         self._open(time.perf_counter())
 

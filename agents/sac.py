@@ -98,19 +98,6 @@ class SoftActorCritic(nn.Module):
 
     # ----- acting (one agent, or every agent at once) ----------------------------------------------
 
-    @torch.no_grad()
-    def act(self, obs: np.ndarray, deterministic: bool, generator: torch.Generator | None = None) -> np.ndarray:
-        """Action in (−1, 1) for one observation of a one-agent population: ``tanh(mean)`` or a sample.
-
-        ``generator`` defaults to the training generator; evaluation passes its own so that how
-        often a run evaluates never changes what it learns.
-        """
-        x = torch.as_tensor(obs, dtype=torch.float32).unsqueeze(0)
-        if deterministic:
-            return self.actor.deterministic(x)[0].numpy()
-        action, _, _ = self.actor.sample(x, generator or self.generators[0])
-        return action[0].numpy()
-
     def act_all(self, obs: np.ndarray) -> np.ndarray:
         """A policy sample for every agent, ``[population, act_dim]``, from ``obs`` ``[population, obs_dim]``,
         each drawn from the agent's own generator."""
@@ -204,13 +191,14 @@ class SoftActorCritic(nn.Module):
 
     # ----- one agent's slice ------------------------------------------------------------------------
 
-    def _rows(self, tensor: torch.Tensor, agent: int) -> slice:
+    def rows(self, tensor: torch.Tensor, agent: int) -> slice:
+        """The rows of ``tensor`` (a weight, buffer or optimiser moment of this population) that belong to ``agent``."""
         per = tensor.shape[0] // self.population
         return slice(agent * per, (agent + 1) * per)
 
     def member_state(self, agent: int) -> dict[str, torch.Tensor]:
         """Agent ``agent``'s weights and buffers, shaped as a one-agent population's ``state_dict``."""
-        return {k: v[self._rows(v, agent)].clone() for k, v in self.state_dict().items()}
+        return {k: v[self.rows(v, agent)].clone() for k, v in self.state_dict().items()}
 
     def load_member_state(self, agent: int, state: dict[str, torch.Tensor]) -> None:
         """Put one agent's ``state_dict`` (as :meth:`member_state` gives it) into its rows.
@@ -220,7 +208,7 @@ class SoftActorCritic(nn.Module):
         """
         with torch.no_grad():
             for key, value in self.state_dict().items():
-                value[self._rows(value, agent)].copy_(state[key])
+                value[self.rows(value, agent)].copy_(state[key])
 
     def member(self, agent: int) -> SoftActorCritic:
         """A one-agent copy of agent ``agent`` (for evaluation and saving; it does not train the population)."""

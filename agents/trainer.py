@@ -174,7 +174,7 @@ class TrainingLoop:
                 for key, value in moments.items():
                     value = torch.as_tensor(value)
                     # Adam's step count is one number for all members; the moments have one row per member.
-                    tensors[f"optim/{name}/{index}/{key}"] = value if value.dim() == 0 else value[self.agent._rows(value, i)]
+                    tensors[f"optim/{name}/{index}/{key}"] = value if value.dim() == 0 else value[self.agent.rows(value, i)]
         tensors["rng/training"] = m.generator.get_state()
         counters, sums = self.window.state()
         tensors["window/sums"] = sums[i:i + 1].clone()
@@ -266,7 +266,7 @@ class TrainingLoop:
                 continue
             for m in self._active():
                 if not bool(finite[m.index]):
-                    rows = value[self.agent._rows(value, m.index)]
+                    rows = value[self.agent.rows(value, m.index)]
                     self._fail(m, DivergenceError(f"weight {name}", float(rows[~torch.isfinite(rows)][0]), f"at env step {self.step}"))
 
     # ----- the loop --------------------------------------------------------------------------------
