@@ -64,12 +64,18 @@ class Collector:
         _check_finite(obs, "observation", None)
         return obs
 
-    def step(self, action: np.ndarray, step: int | None = None) -> EpisodeEnd | None:
+    def step(self, action: np.ndarray, step: int | None = None, env_action: np.ndarray | None = None) -> EpisodeEnd | None:
         """Apply ``action`` (agent units), store the transition, reset at episode end.
 
         The stored next observation is always the one the env returned for this step, also when a
         time limit cut the episode (never the reset observation), and only *termination* is stored
         as terminal: a truncated transition keeps bootstrapping in the critic target.
+
+        Args:
+            action: The action in the agent's (−1, 1) units.
+            step: The env step, for error messages.
+            env_action: ``action`` already mapped to the task's units (a population maps all its
+                members' actions in one call); mapped here when ``None``.
 
         Returns:
             The finished episode's statistics when the episode ended with this step, else ``None``.
@@ -77,13 +83,17 @@ class Collector:
         Raises:
             DivergenceError: If the env returned a non-finite observation or reward.
         """
-        env_action = self.scale.to_env(action)
+        if env_action is None:
+            env_action = self.scale.to_env(action)
         t0 = time.perf_counter()
         next_obs, reward, terminated, truncated, _ = self.env.step(env_action)
         self.env_step_time += time.perf_counter() - t0
-        _check_finite(next_obs, "observation", step)
-        _check_finite(np.asarray(reward), "reward", step)
-        self.replay.add(self.obs, action, float(reward), next_obs, bool(terminated))
+        row = self.replay.add(self.obs, action, reward, next_obs, terminated)
+        if not np.isfinite(row).all():
+            # The row holds every field in float32: name the first non-finite one as the env gave it.
+            _check_finite(next_obs, "observation", step)
+            _check_finite(np.asarray(reward), "reward", step)
+            _check_finite(row, "transition (beyond float32's range)", step)
         self.episode.actions.append(env_action)
         self.episode.return_ += float(reward)
         self.episode.length += 1

@@ -10,6 +10,7 @@ stays on the same course whichever way it acts. Updates, evaluation and saved po
 
 from __future__ import annotations
 
+import weakref
 from collections.abc import Callable, Sequence
 
 import numpy as np
@@ -19,16 +20,38 @@ from agents.actor import SquashedGaussianActor
 
 
 def _softplus(x: np.ndarray) -> np.ndarray:
-    # torch.nn.functional.softplus with its default threshold 20: x itself above it.
-    return np.where(x > 20.0, x, np.log1p(np.exp(np.minimum(x, 20.0))))
+    # log(1 + eˣ) in one ufunc, stable at both ends; within float32 rounding of torch's softplus
+    # (threshold 20), against which tests/agents/test_numpy_actor.py checks it.
+    return np.logaddexp(np.float32(0.0), x)
+
+
+def _relu(x: np.ndarray) -> np.ndarray:
+    return np.maximum(x, np.float32(0.0), out=x)  # x is a fresh product: overwriting it saves an allocation
 
 
 _NONLINEARITIES: dict[str, Callable[[np.ndarray], np.ndarray]] = {
-    "relu": lambda x: np.maximum(x, 0.0),
+    "relu": _relu,
     "tanh": np.tanh,
     "elu": lambda x: np.where(x > 0.0, x, np.expm1(np.minimum(x, 0.0))),
     "silu": lambda x: x / (1.0 + np.exp(-x)),
 }
+
+# Per actor: the data pointers its NumPy views were made for, and the views (weight, bias) per layer.
+_VIEWS: weakref.WeakKeyDictionary[SquashedGaussianActor, tuple[tuple[int, ...], list[tuple[np.ndarray, np.ndarray]]]]
+_VIEWS = weakref.WeakKeyDictionary()
+
+
+def _layer_views(actor: SquashedGaussianActor) -> list[tuple[np.ndarray, np.ndarray]]:
+    """NumPy views of the actor's layers, made once: they share memory with the parameters, which the
+    optimiser and checkpoint loading update in place; new ones are made if a parameter was replaced."""
+    layers = actor.body.linears()
+    pointers = tuple(t.data_ptr() for layer in layers for t in (layer.weight, layer.bias))
+    cached = _VIEWS.get(actor)
+    if cached is not None and cached[0] == pointers:
+        return cached[1]
+    views = [(layer.weight.detach().numpy(), layer.bias.detach().numpy()) for layer in layers]
+    _VIEWS[actor] = (pointers, views)
+    return views
 
 
 def sample_actions(actor: SquashedGaussianActor, obs: np.ndarray, generators: Sequence[torch.Generator]) -> np.ndarray:
@@ -36,13 +59,19 @@ def sample_actions(actor: SquashedGaussianActor, obs: np.ndarray, generators: Se
     ``[population, obs_dim]``; agent k's noise is drawn from ``generators[k]``."""
     hidden = _NONLINEARITIES[actor.nonlinearity]
     x = np.asarray(obs, dtype=np.float32)[:, None, :]
-    layers = actor.body.linears()
-    for i, layer in enumerate(layers):
-        x = np.matmul(x, layer.weight.detach().numpy()) + layer.bias.detach().numpy()
-        if i < len(layers) - 1:
+    views = _layer_views(actor)
+    last = len(views) - 1
+    for i, (weight, bias) in enumerate(views):
+        x = np.matmul(x, weight)
+        x += bias
+        if i < last:
             x = hidden(x)
     mean, raw = x[..., : actor.act_dim], x[..., actor.act_dim :]
-    low, high = actor.log_std_low, actor.log_std_high
-    log_std = low + _softplus(high - _softplus(high - raw) - low)  # agents.actor.soft_clamp
-    noise = np.stack([torch.randn(mean.shape[1:], generator=g).numpy() for g in generators])
-    return np.tanh(mean + np.exp(log_std) * noise)[:, 0].astype(np.float32)
+    low, high = np.float32(actor.log_std_low), np.float32(actor.log_std_high)
+    with np.errstate(invalid="ignore"):  # NaN weights: the env's finite check names the divergence, not a warning
+        log_std = low + _softplus(high - _softplus(high - raw) - low)  # agents.actor.soft_clamp
+    if len(generators) == 1:
+        noise = torch.randn(mean.shape[1:], generator=generators[0]).numpy()[None]
+    else:
+        noise = np.stack([torch.randn(mean.shape[1:], generator=g).numpy() for g in generators])
+    return np.tanh(mean + np.exp(log_std) * noise)[:, 0]

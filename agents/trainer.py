@@ -294,11 +294,13 @@ class TrainingLoop:
             actions = [m.warmup_rng.uniform(-1.0, 1.0, self.act_dim).astype(np.float32) for m in self.members]
         else:
             actions = self.agent.act_all(np.stack([m.collector.obs for m in self.members]))
-        for m, action in zip(self.members, actions):
+        # Every member's actions in task units in one call: members run the same task, so one scale serves all.
+        env_actions = self.members[0].scale.to_env(np.asarray(actions))
+        for m, action, env_action in zip(self.members, actions, env_actions):
             if m.failed is not None:
                 continue
             try:
-                ended = m.collector.step(action, step)
+                ended = m.collector.step(action, step, env_action)
             except DivergenceError as err:
                 self._fail(m, err)
                 continue

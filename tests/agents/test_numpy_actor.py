@@ -28,3 +28,29 @@ def test_numpy_actions_equal_torch_samples(nonlinearity):
     assert got.shape == (4, 2) and got.dtype == np.float32
     np.testing.assert_allclose(got, expected, rtol=1e-6, atol=1e-6)
     assert all(torch.equal(a.get_state(), b.get_state()) for a, b in zip(torch_generators, numpy_generators))
+
+
+def test_numpy_actions_follow_weights_changed_in_place_and_replaced():
+    """The NumPy path reuses views of the weights: after an optimiser step, a checkpoint load (both in
+    place) and a parameter replaced outright, its actions still equal torch's samples of the new weights."""
+    actor = SquashedGaussianActor(3, 1, (8,), "relu", (-5.0, 1.0), torch.Generator().manual_seed(0), population=2)
+    obs = np.random.default_rng(2).normal(size=(2, 3)).astype(np.float32)
+
+    def check() -> None:
+        gens_t = [torch.Generator().manual_seed(k) for k in range(2)]
+        gens_n = [torch.Generator().manual_seed(k) for k in range(2)]
+        with torch.no_grad():
+            expected = actor.sample(torch.from_numpy(obs).unsqueeze(1), gens_t)[0][:, 0].numpy()
+        np.testing.assert_allclose(numpy_actor.sample_actions(actor, obs, gens_n), expected, rtol=1e-6, atol=1e-6)
+
+    check()
+    opt = torch.optim.Adam(actor.parameters(), lr=0.5)
+    actor.sample(torch.from_numpy(obs).unsqueeze(1), [torch.Generator(), torch.Generator()])[0].sum().backward()
+    opt.step()
+    check()
+    other = SquashedGaussianActor(3, 1, (8,), "relu", (-5.0, 1.0), torch.Generator().manual_seed(7), population=2)
+    actor.load_state_dict(other.state_dict())
+    check()
+    first = actor.body.linears()[0]
+    first.weight = torch.nn.Parameter(first.weight.detach() * 3.0)
+    check()
