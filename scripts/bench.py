@@ -152,6 +152,12 @@ def run_loop(args: argparse.Namespace, out: dict[str, Any]) -> None:
         print(_loop_line(label, split))
     preset = out["loop_split"]["preset"]
     out["env_steps_per_s"], out["loop_overhead_fraction"] = preset["env_steps_per_s"], preset["overhead_fraction"]
+    from agents.bench.act_cost import act_cost
+
+    cost = act_cost()
+    out["act_us"] = {"warm": cost.warm_us, "after_update": cost.after_update_us}
+    print(f"  one training action (NumPy, Pendulum size): {cost.warm_us:.0f} µs repeated at once, "
+          f"{cost.after_update_us:.0f} µs right after an update ({cost.ratio:.1f}x: the update leaves the caches cold)")
 
 
 def run_sweep(args: argparse.Namespace, out: dict[str, Any]) -> None:
@@ -210,6 +216,7 @@ def empty_report(args: argparse.Namespace) -> dict[str, Any]:
         "env_steps_per_s": None,
         "loop_overhead_fraction": None,
         "loop_split": {"preset": None, "final_eval_only": None},
+        "act_us": {"warm": None, "after_update": None},
         "sweep_wall_s": {"jobs": None, "population": None},
         "parts": list(args.parts),
         "threads": 1,
