@@ -171,7 +171,9 @@ class PopulationReplay:
         self.storage = torch.zeros(len(generators), capacity, row_width(obs_dim, act_dim))
         self.obs_dim, self.act_dim = obs_dim, act_dim
         self.buffers = [ReplayBuffer(capacity, obs_dim, act_dim, g, self.storage[i]) for i, g in enumerate(generators)]
-        self._agent_index = torch.arange(len(generators)).unsqueeze(1)
+        # Agent k's rows start at k·capacity of the flat storage: a minibatch is one index_select of flat rows.
+        self._flat = self.storage.view(len(generators) * capacity, -1)
+        self._offsets = (torch.arange(len(generators)) * capacity).unsqueeze(1)
 
     def __len__(self) -> int:
         """Transitions held by the emptiest buffer (they fill in step)."""
@@ -182,6 +184,7 @@ class PopulationReplay:
         from its own buffer with its own generator."""
         if len(self) == 0:
             raise RuntimeError("cannot sample from an empty replay buffer")
-        idx = torch.stack([torch.randint(b.size, (batch_size,), generator=b.generator) for b in self.buffers])
-        rows = self.storage[self._agent_index, idx]
+        draws = [torch.randint(b.size, (batch_size,), generator=b.generator) for b in self.buffers]
+        idx = draws[0].unsqueeze(0) if len(draws) == 1 else torch.stack(draws)
+        rows = self._flat.index_select(0, (idx + self._offsets).view(-1)).view(*idx.shape, -1)
         return Batch(*split_row(rows, self.obs_dim, self.act_dim))
