@@ -51,6 +51,36 @@ def _adam(params: Sequence[torch.Tensor] | object, lr: float) -> torch.optim.Ada
     return torch.optim.Adam(params, lr=lr, fused=True)
 
 
+@torch.no_grad()
+def adam_step(opt: torch.optim.Adam) -> None:
+    """``opt.step()`` for one of :func:`_adam`'s optimisers: the same fused kernel on the same tensors.
+
+    Once every parameter with a gradient has its moments, the step is called directly, without the
+    optimiser's per-call bookkeeping (grouping by device, hooks, a profiler record): ≈40 µs of
+    Python per call, three calls per update. Anything else (the first step, which creates the
+    moments) goes through ``opt.step()``.
+    """
+    group = opt.param_groups[0]
+    params = [p for p in group["params"] if p.grad is not None]
+    states = [opt.state.get(p) for p in params]
+    if len(opt.param_groups) != 1 or not params or not all(states) or group["amsgrad"] or group["maximize"]:
+        opt.step()
+        return
+    steps = [s["step"] for s in states]
+    torch._foreach_add_(steps, 1)
+    torch._fused_adam_(
+        params, [p.grad for p in params], [s["exp_avg"] for s in states], [s["exp_avg_sq"] for s in states], [], steps,
+        amsgrad=False, lr=group["lr"], beta1=group["betas"][0], beta2=group["betas"][1],
+        weight_decay=group["weight_decay"], eps=group["eps"], maximize=False,
+    )  # fmt: skip
+
+
+def clear_grads(params: Sequence[torch.Tensor]) -> None:
+    """``zero_grad(set_to_none=True)`` without the optimiser's profiler record and grouping."""
+    for p in params:
+        p.grad = None
+
+
 class SoftActorCritic(nn.Module):
     """Actors, critic ensembles, target critics and temperatures of ``len(members)`` agents, with their optimisers.
 
@@ -87,6 +117,7 @@ class SoftActorCritic(nn.Module):
         self.critic_opt = _adam(self.critic.parameters(), s.critic.lr)
         self.temperature_opt = _adam([self.temperature.log_alpha], s.temperature.lr)
         self._online = list(self.critic.parameters())
+        self._actor_params = list(self.actor.parameters())
         self._targets = list(self.critic_target.parameters())
 
     @classmethod
@@ -145,9 +176,9 @@ class SoftActorCritic(nn.Module):
         q = self.critic(batch.obs, batch.action)
         td = q - target.unsqueeze(1)
         critic_loss = 0.5 * td.pow(2).mean(dim=2).sum()
-        self.critic_opt.zero_grad(set_to_none=True)
+        clear_grads(self._online)
         critic_loss.backward()
-        self.critic_opt.step()
+        adam_step(self.critic_opt)
 
         # 2. Actor: J_π = E[α log π(a|s) − min_k Q_k(s, a)], a reparameterised. The critic is frozen
         #    so that this backward pass does not compute gradients nobody uses.
@@ -155,16 +186,16 @@ class SoftActorCritic(nn.Module):
         action, log_prob, log_std = self.actor.sample(batch.obs, self.generators)
         q_pi = self.critic(batch.obs, action).min(dim=1).values
         actor_losses = (self.temperature.bonus(log_prob) - q_pi).mean(dim=1)
-        self.actor_opt.zero_grad(set_to_none=True)
+        clear_grads(self._actor_params)
         actor_losses.sum().backward()
-        self.actor_opt.step()
+        adam_step(self.actor_opt)
         self.critic.requires_grad_(True)
 
         # 3. Temperature (Eq. 18), on the same actions; its gradient in closed form (Temperature.gradient).
         temperature_objective = self.temperature.loss(log_prob).detach()
         if self.temperature.any_tuned:
             self.temperature.log_alpha.grad = self.temperature.gradient(log_prob)
-            self.temperature_opt.step()
+            adam_step(self.temperature_opt)
 
         # 4. Targets: θ̄ ← τ θ + (1 − τ) θ̄ after every gradient step (Table 1: update interval 1).
         self.polyak_update()
