@@ -293,7 +293,8 @@ class TrainingLoop:
         if step <= r.warmup_steps:
             actions = [m.warmup_rng.uniform(-1.0, 1.0, self.act_dim).astype(np.float32) for m in self.members]
         else:
-            actions = self.agent.act_all(np.stack([m.collector.obs for m in self.members]))
+            obs = [m.collector.obs for m in self.members]
+            actions = self.agent.act_all(obs[0][None] if len(obs) == 1 else np.stack(obs))
         # Every member's actions in task units in one call: members run the same task, so one scale serves all.
         env_actions = self.members[0].scale.to_env(np.asarray(actions))
         for m, action, env_action in zip(self.members, actions, env_actions):
