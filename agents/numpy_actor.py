@@ -54,11 +54,9 @@ def _layer_views(actor: SquashedGaussianActor) -> list[tuple[np.ndarray, np.ndar
     return views
 
 
-def sample_actions(actor: SquashedGaussianActor, obs: np.ndarray, generators: Sequence[torch.Generator]) -> np.ndarray:
-    """A policy sample ``tanh(mean + std·noise)`` per agent, ``[population, act_dim]``, for ``obs``
-    ``[population, obs_dim]``; agent k's noise is drawn from ``generators[k]``."""
+def _mean_log_std(actor: SquashedGaussianActor, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Mean and soft-limited log-std of u, ``[population, n, act_dim]`` each, for ``x`` ``[population, n, obs_dim]``."""
     hidden = _NONLINEARITIES[actor.nonlinearity]
-    x = np.asarray(obs, dtype=np.float32)[:, None, :]
     views = _layer_views(actor)
     last = len(views) - 1
     for i, (weight, bias) in enumerate(views):
@@ -70,8 +68,31 @@ def sample_actions(actor: SquashedGaussianActor, obs: np.ndarray, generators: Se
     low, high = np.float32(actor.log_std_low), np.float32(actor.log_std_high)
     with np.errstate(invalid="ignore"):  # NaN weights: the env's finite check names the divergence, not a warning
         log_std = low + _softplus(high - _softplus(high - raw) - low)  # agents.actor.soft_clamp
+    return mean, log_std
+
+
+def sample_actions(actor: SquashedGaussianActor, obs: np.ndarray, generators: Sequence[torch.Generator]) -> np.ndarray:
+    """A policy sample ``tanh(mean + std·noise)`` per agent, ``[population, act_dim]``, for ``obs``
+    ``[population, obs_dim]``; agent k's noise is drawn from ``generators[k]``."""
+    mean, log_std = _mean_log_std(actor, np.asarray(obs, dtype=np.float32)[:, None, :])
     if len(generators) == 1:
         noise = torch.randn(mean.shape[1:], generator=generators[0]).numpy()[None]
     else:
         noise = np.stack([torch.randn(mean.shape[1:], generator=g).numpy() for g in generators])
     return np.tanh(mean + np.exp(log_std) * noise)[:, 0]
+
+
+_LOG_SQRT_2PI = np.float32(0.5 * np.log(2.0 * np.pi))
+_LOG_2 = np.float32(np.log(2.0))
+
+
+def sample_with_log_prob(actor: SquashedGaussianActor, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """Policy samples for observations ``[n, obs_dim]`` of a one-agent actor, drawn from ``generator``
+    as :meth:`agents.actor.SquashedGaussianActor.sample` draws them, and their per-dimension
+    log-densities (agents.squashed_gaussian.transform's stable form), each ``[n, act_dim]``."""
+    mean, log_std = _mean_log_std(actor, np.asarray(obs, dtype=np.float32)[None])
+    noise = torch.randn(mean.shape[1:], generator=generator).numpy()
+    u = mean[0] + np.exp(log_std[0]) * noise
+    # log(1 − tanh² u) = 2 (log 2 − u − softplus(−2u)), finite for every u.
+    log_prob = -0.5 * noise * noise - log_std[0] - _LOG_SQRT_2PI - 2.0 * (_LOG_2 - u - _softplus(-2.0 * u))
+    return np.tanh(u), log_prob

@@ -134,13 +134,14 @@ class SoftActorCritic(nn.Module):
         each drawn from the agent's own generator."""
         return numpy_actor.sample_actions(self.actor, obs, self.generators)
 
-    @torch.inference_mode()
     def act_with_bonus(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, np.ndarray]:
         """Policy samples for observations ``[n, obs_dim]`` of a one-agent population (drawn from
-        ``generator``) and their entropy terms α·log π(a|s), ``[n]``."""
-        x = torch.as_tensor(np.asarray(obs), dtype=torch.float32).unsqueeze(0)
-        action, log_prob, _ = self.actor.sample(x, [generator])
-        return action[0].numpy(), self.temperature.bonus(log_prob)[0].numpy()
+        ``generator``) and their entropy terms α·log π(a|s), ``[n]``. In NumPy, as training actions
+        are: the Q-bias diagnostic calls this once per step of its episodes."""
+        action, log_prob = numpy_actor.sample_with_log_prob(self.actor, obs, generator)
+        alpha = self.temperature.alpha()[0].numpy()
+        grouped = log_prob.sum(axis=-1, keepdims=True) if self.temperature.groups == 1 else log_prob
+        return action, (grouped * alpha).sum(axis=-1)
 
     @torch.inference_mode()
     def soft_q(self, obs: np.ndarray, action: np.ndarray) -> np.ndarray:

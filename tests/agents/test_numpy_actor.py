@@ -54,3 +54,25 @@ def test_numpy_actions_follow_weights_changed_in_place_and_replaced():
     first = actor.body.linears()[0]
     first.weight = torch.nn.Parameter(first.weight.detach() * 3.0)
     check()
+
+
+@pytest.mark.parametrize("targets", [(-2.0,), (-1.0, -0.5)])  # one temperature, and one per action dimension
+def test_action_and_entropy_term_equal_torch_sample_and_bonus(targets):
+    """SoftActorCritic.act_with_bonus (NumPy) against torch: the actor's reparameterised sample, its
+    per-dimension log-density from agents.squashed_gaussian, and Temperature.bonus (α·log π)."""
+    from agents.sac import MemberSetup, SoftActorCritic
+    from agents.settings import AgentSettings
+
+    agent = SoftActorCritic(3, 2, AgentSettings(layer_widths=(16, 16)), [MemberSetup(targets, torch.Generator().manual_seed(0), 0.3)])
+    with torch.no_grad():  # a second temperature unlike the first, and log-stds past both soft limits
+        agent.temperature.log_alpha[0, -1] = -2.0
+        agent.actor.body.linears()[-1].bias[:, :, 2:] = torch.tensor([30.0, -30.0])
+    obs = np.random.default_rng(3).normal(size=(5, 3)).astype(np.float32) * 2
+    g_torch, g_numpy = torch.Generator().manual_seed(4), torch.Generator().manual_seed(4)
+    with torch.no_grad():
+        action, log_prob, _ = agent.actor.sample(torch.from_numpy(obs)[None], [g_torch])
+        expected_bonus = agent.temperature.bonus(log_prob)[0].numpy()
+    got_action, got_bonus = agent.act_with_bonus(obs, g_numpy)
+    np.testing.assert_allclose(got_action, action[0].numpy(), rtol=1e-6, atol=1e-6)
+    np.testing.assert_allclose(got_bonus, expected_bonus, rtol=1e-5, atol=1e-5)
+    assert torch.equal(g_torch.get_state(), g_numpy.get_state())
