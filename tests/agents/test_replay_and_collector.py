@@ -6,6 +6,7 @@ Pendulum-v1 never terminates, only truncates at 200 steps (Gymnasium's registere
 
 import gymnasium as gym
 import numpy as np
+import pytest
 import torch
 from scipy import stats
 
@@ -79,3 +80,40 @@ def test_sampling_is_uniform_chi_square():
         replay.add(np.array([i]), np.array([0.0]), float(i), np.array([i]), False)
     counts = np.bincount(torch.cat([replay.sample(500).reward for _ in range(40)]).long().numpy(), minlength=20)
     assert stats.chisquare(counts).pvalue > 1e-3
+
+
+class _Emits(gym.Env):
+    """Returns a fixed observation and reward on its first step (a fault injected for the test)."""
+
+    observation_space = gym.spaces.Box(-np.inf, np.inf, (1,), np.float32)
+    action_space = gym.spaces.Box(-1.0, 1.0, (1,), np.float32)
+
+    def __init__(self, obs, reward):
+        self.obs, self.reward = obs, reward
+
+    def reset(self, *, seed=None, options=None):
+        super().reset(seed=seed)
+        return np.zeros(1, np.float32), {}
+
+    def step(self, action):
+        return np.array([self.obs]), self.reward, False, False, {}
+
+
+@pytest.mark.parametrize(
+    "obs,reward,quantity",
+    [
+        (float("nan"), 0.0, "observation"),
+        (0.0, float("inf"), "reward"),
+        # Finite in float64 but beyond float32's largest value (3.4e38, IEEE 754 binary32): stored as inf.
+        (0.0, 1e39, "transition (beyond float32's range)"),
+    ],
+)
+def test_a_non_finite_transition_stops_naming_the_field(obs, reward, quantity):
+    from agents.errors import DivergenceError
+
+    env = _Emits(obs, reward)
+    replay = ReplayBuffer(10, 1, 1, torch.Generator().manual_seed(0))
+    collector = Collector(env, replay, ActionScale(env.action_space.low, env.action_space.high), seed=0)
+    with pytest.raises(DivergenceError) as caught, np.errstate(over="ignore"):
+        collector.step(np.array([0.0], np.float32), step=7)
+    assert caught.value.quantity == quantity and caught.value.where == "at env step 7"
