@@ -16,6 +16,7 @@ from collections.abc import Callable, Sequence
 import numpy as np
 import torch
 
+from agents import squashed_gaussian
 from agents.actor import SquashedGaussianActor
 
 
@@ -82,8 +83,8 @@ def sample_actions(actor: SquashedGaussianActor, obs: np.ndarray, generators: Se
     return np.tanh(mean + np.exp(log_std) * noise)[:, 0]
 
 
-_LOG_SQRT_2PI = np.float32(0.5 * np.log(2.0 * np.pi))
-_LOG_2 = np.float32(np.log(2.0))
+_LOG_SQRT_2PI = np.float32(squashed_gaussian._LOG_SQRT_2PI)
+_LOG_2 = np.float32(squashed_gaussian._LOG_2)
 
 
 def sample_with_log_prob(actor: SquashedGaussianActor, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, np.ndarray]:

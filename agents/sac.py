@@ -139,9 +139,7 @@ class SoftActorCritic(nn.Module):
         ``generator``) and their entropy terms α·log π(a|s), ``[n]``. In NumPy, as training actions
         are: the Q-bias diagnostic calls this once per step of its episodes."""
         action, log_prob = numpy_actor.sample_with_log_prob(self.actor, obs, generator)
-        alpha = self.temperature.alpha()[0].numpy()
-        grouped = log_prob.sum(axis=-1, keepdims=True) if self.temperature.groups == 1 else log_prob
-        return action, (grouped * alpha).sum(axis=-1)
+        return action, self.temperature.bonus(torch.from_numpy(log_prob)[None])[0].numpy()
 
     @torch.inference_mode()
     def soft_q(self, obs: np.ndarray, action: np.ndarray) -> np.ndarray:

@@ -41,7 +41,9 @@ def act_cost(rounds: int = 200) -> ActCost:
     replay = PopulationReplay(4 * case.batch_size, case.obs_dim, case.act_dim, [generator])
     rng = np.random.default_rng(0)
     for _ in range(4 * case.batch_size):
-        replay.buffers[0].add(rng.normal(size=3), rng.uniform(-1, 1, 1), float(rng.normal()), rng.normal(size=3), False)
+        replay.buffers[0].add(
+            rng.normal(size=case.obs_dim), rng.uniform(-1, 1, case.act_dim), float(rng.normal()), rng.normal(size=case.obs_dim), False
+        )
     obs = rng.normal(size=(1, case.obs_dim)).astype(np.float32)
     warm, cold = [], []
     for _ in range(rounds):
