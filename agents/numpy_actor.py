@@ -12,12 +12,15 @@ from __future__ import annotations
 
 import weakref
 from collections.abc import Callable, Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 import torch
 
 from agents import squashed_gaussian
-from agents.actor import SquashedGaussianActor
+
+if TYPE_CHECKING:  # the actor module acts through this one
+    from agents.actor import SquashedGaussianActor
 
 
 def _softplus(x: np.ndarray) -> np.ndarray:
@@ -37,26 +40,36 @@ _NONLINEARITIES: dict[str, Callable[[np.ndarray], np.ndarray]] = {
     "silu": lambda x: x / (1.0 + np.exp(-x)),
 }
 
-# Per actor: the data pointers its NumPy views were made for, and the views (weight, bias) per layer.
-_VIEWS: weakref.WeakKeyDictionary[SquashedGaussianActor, tuple[tuple[int, ...], list[tuple[np.ndarray, np.ndarray]]]]
+# Per actor: what its NumPy views were made from (per tensor: the layer's parameter dict, the name,
+# the parameter object and its data pointer), and the views (weight, bias) per layer.
+_Made = list[tuple[dict, str, torch.Tensor, int]]
+_VIEWS: weakref.WeakKeyDictionary[SquashedGaussianActor, tuple[_Made, list[tuple[np.ndarray, np.ndarray]]]]
 _VIEWS = weakref.WeakKeyDictionary()
 
 
 def _layer_views(actor: SquashedGaussianActor) -> list[tuple[np.ndarray, np.ndarray]]:
     """NumPy views of the actor's layers, made once: they share memory with the parameters, which the
-    optimiser and checkpoint loading update in place; new ones are made if a parameter was replaced."""
-    layers = actor.body.linears()
-    pointers = tuple(t.data_ptr() for layer in layers for t in (layer.weight, layer.bias))
+    optimiser and checkpoint loading update in place; new ones are made if a parameter was replaced
+    (another object in the layer, or new memory under the same one)."""
     cached = _VIEWS.get(actor)
-    if cached is not None and cached[0] == pointers:
-        return cached[1]
+    if cached is not None:
+        # Read through the layers' parameter dicts: nn.Module attribute access costs ≈1 µs a name,
+        # which made this check a quarter of an action's cost.
+        for params, name, tensor, pointer in cached[0]:
+            current = params[name]
+            if current is not tensor or current.data_ptr() != pointer:
+                break
+        else:
+            return cached[1]
+    layers = actor.body.linears()
+    made = [(layer._parameters, name, layer._parameters[name], layer._parameters[name].data_ptr()) for layer in layers for name in ("weight", "bias")]
     views = [(layer.weight.detach().numpy(), layer.bias.detach().numpy()) for layer in layers]
-    _VIEWS[actor] = (pointers, views)
+    _VIEWS[actor] = (made, views)
     return views
 
 
-def _mean_log_std(actor: SquashedGaussianActor, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Mean and soft-limited log-std of u, ``[population, n, act_dim]`` each, for ``x`` ``[population, n, obs_dim]``."""
+def _outputs(actor: SquashedGaussianActor, x: np.ndarray) -> np.ndarray:
+    """The last layer's output, ``[population, n, 2·act_dim]``, for ``x`` ``[population, n, obs_dim]``."""
     hidden = _NONLINEARITIES[actor.nonlinearity]
     views = _layer_views(actor)
     last = len(views) - 1
@@ -65,11 +78,22 @@ def _mean_log_std(actor: SquashedGaussianActor, x: np.ndarray) -> tuple[np.ndarr
         x += bias
         if i < last:
             x = hidden(x)
+    return x
+
+
+def _mean_log_std(actor: SquashedGaussianActor, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Mean and soft-limited log-std of u, ``[population, n, act_dim]`` each, for ``x`` ``[population, n, obs_dim]``."""
+    x = _outputs(actor, x)
     mean, raw = x[..., : actor.act_dim], x[..., actor.act_dim :]
     low, high = np.float32(actor.log_std_low), np.float32(actor.log_std_high)
     with np.errstate(invalid="ignore"):  # NaN weights: the env's finite check names the divergence, not a warning
         log_std = low + _softplus(high - _softplus(high - raw) - low)  # agents.actor.soft_clamp
     return mean, log_std
+
+
+def deterministic_actions(actor: SquashedGaussianActor, obs: np.ndarray) -> np.ndarray:
+    """The policy's mode ``tanh(mean)``, ``[n, act_dim]``, for observations ``[n, obs_dim]`` of a one-agent actor."""
+    return np.tanh(_outputs(actor, np.asarray(obs, dtype=np.float32)[None])[0, :, : actor.act_dim])
 
 
 def sample_actions(actor: SquashedGaussianActor, obs: np.ndarray, generators: Sequence[torch.Generator]) -> np.ndarray:

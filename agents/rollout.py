@@ -140,19 +140,29 @@ def rollout(
     starts = np.asarray(observations, dtype=np.float64).copy()
     alive = np.ones(len(starts), dtype=bool)
     by_termination = np.zeros(len(starts), dtype=bool)
+    # Per step only what decides the next step; the records are masked and converted once, at the end
+    # (the same values: a step's reward and entropy term are kept where the copy was alive, 0 elsewhere).
     rewards, terms, masks, first_actions = [], [], [], None
     while alive.any():
         actions, entropy_terms = policy(observations)
         if first_actions is None:
             first_actions = np.array(actions, copy=True)
         observations, reward, terminated, truncated, _ = batch.step(actions if to_env is None else to_env(actions))
+        masks.append(alive)
+        rewards.append(reward)
+        terms.append(entropy_terms)
         terminated = np.asarray(terminated, dtype=bool)
-        masks.append(alive.copy())
-        rewards.append(np.where(alive, np.asarray(reward, dtype=np.float64), 0.0))
-        terms.append(np.where(alive, np.asarray(entropy_terms, dtype=np.float64), 0.0))
         by_termination |= alive & terminated
-        alive &= ~(terminated | np.asarray(truncated, dtype=bool))
-    return Rollout(seed, starts, first_actions, np.stack(rewards), np.stack(terms), np.stack(masks), by_termination)
+        alive = alive & ~(terminated | np.asarray(truncated, dtype=bool))  # a new array: masks keeps the old one
+    mask = np.array(masks)
+    return Rollout(
+        seed, starts, first_actions, _masked(rewards, mask), _masked(terms, mask), mask, by_termination
+    )
+
+
+def _masked(per_step: list[np.ndarray], mask: np.ndarray) -> np.ndarray:
+    """Per-step values ``[B]`` as float64 ``[T, B]``, 0 where ``mask`` is false."""
+    return np.where(mask, np.array(per_step, dtype=np.float64).reshape(mask.shape), 0.0)
 
 
 def rollout_episode(
@@ -192,24 +202,26 @@ class _Lockstep:
 
     def __init__(self, envs: Sequence[gym.Env], seeds: Sequence[int]) -> None:
         self.envs, self.seeds = list(envs), list(seeds)
-        self.done = np.zeros(len(self.envs), dtype=bool)
-        self.last: list[np.ndarray] = []
+        self.running: list[int] = []
+        self.last = np.zeros(0)
 
     def reset(self, *, seed: int) -> tuple[np.ndarray, dict[str, Any]]:
-        self.last = [np.asarray(env.reset(seed=s)[0]) for env, s in zip(self.envs, self.seeds)]
-        self.done[:] = False
-        return np.stack(self.last), {}
+        self.last = np.stack([np.asarray(env.reset(seed=s)[0]) for env, s in zip(self.envs, self.seeds)])
+        self.running = list(range(len(self.envs)))
+        return self.last.copy(), {}
 
     def step(self, actions: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, dict[str, Any]]:
         n = len(self.envs)
+        # An ended episode's row stays as it was (0 reward, ended); the rollout masks it out.
         reward, terminated, truncated = np.zeros(n), np.ones(n, dtype=bool), np.ones(n, dtype=bool)
-        for i, env in enumerate(self.envs):
-            if self.done[i]:
-                continue  # an ended episode's row stays as it was; the rollout masks it out
-            obs, reward[i], terminated[i], truncated[i], _ = env.step(actions[i])
-            self.last[i] = np.asarray(obs)
-            self.done[i] = terminated[i] or truncated[i]
-        return np.stack(self.last), reward, terminated, truncated, {}
+        still = []
+        for i in self.running:
+            obs, reward[i], terminated[i], truncated[i], _ = self.envs[i].step(actions[i])
+            self.last[i] = obs
+            if not (terminated[i] or truncated[i]):
+                still.append(i)
+        self.running = still
+        return self.last.copy(), reward, terminated, truncated, {}
 
 
 def run_episodes(

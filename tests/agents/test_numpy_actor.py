@@ -54,6 +54,9 @@ def test_numpy_actions_follow_weights_changed_in_place_and_replaced():
     first = actor.body.linears()[0]
     first.weight = torch.nn.Parameter(first.weight.detach() * 3.0)
     check()
+    last = actor.body.linears()[-1]
+    last.bias.data = last.bias.detach() - 1.0  # the same parameter object over new memory
+    check()
 
 
 @pytest.mark.parametrize("targets", [(-2.0,), (-1.0, -0.5)])  # one temperature, and one per action dimension
@@ -75,4 +78,24 @@ def test_action_and_entropy_term_equal_torch_sample_and_bonus(targets):
     got_action, got_bonus = agent.act_with_bonus(obs, g_numpy)
     np.testing.assert_allclose(got_action, action[0].numpy(), rtol=1e-6, atol=1e-6)
     np.testing.assert_allclose(got_bonus, expected_bonus, rtol=1e-5, atol=1e-5)
+    assert torch.equal(g_torch.get_state(), g_numpy.get_state())
+
+
+@pytest.mark.parametrize("nonlinearity", sorted(NONLINEARITIES))
+def test_evaluation_actions_equal_torch_mode_and_sample(nonlinearity):
+    """SquashedGaussianActor.act_batch (NumPy; what training's evaluations and the evaluate command act
+    with) against torch: the mode tanh(mean) of deterministic() and the sample of sample() with the
+    same generator, which must end in the same state. Observations in float64, as MuJoCo tasks give them."""
+    actor = SquashedGaussianActor(5, 3, (32, 32), nonlinearity, (-20.0, 2.0), torch.Generator().manual_seed(1))
+    obs = np.random.default_rng(4).normal(size=(10, 5)) * 2.0
+    x = torch.as_tensor(obs, dtype=torch.float32)
+    with torch.no_grad():
+        mode = actor.deterministic(x).numpy()
+        g_torch, g_numpy = torch.Generator().manual_seed(9), torch.Generator().manual_seed(9)
+        sampled = actor.sample(x, g_torch)[0].numpy()
+    got_mode = actor.act_batch(obs, True)
+    got_sample = actor.act_batch(obs, False, g_numpy)
+    assert got_mode.shape == got_sample.shape == (10, 3) and got_mode.dtype == got_sample.dtype == np.float32
+    np.testing.assert_allclose(got_mode, mode, rtol=1e-6, atol=1e-6)
+    np.testing.assert_allclose(got_sample, sampled, rtol=1e-6, atol=1e-6)
     assert torch.equal(g_torch.get_state(), g_numpy.get_state())

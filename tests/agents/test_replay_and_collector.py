@@ -117,3 +117,19 @@ def test_a_non_finite_transition_stops_naming_the_field(obs, reward, quantity):
     with pytest.raises(DivergenceError) as caught, np.errstate(over="ignore"):
         collector.step(np.array([0.0], np.float32), step=7)
     assert caught.value.quantity == quantity and caught.value.where == "at env step 7"
+
+
+def test_action_scale_maps_affinely_and_clips_to_the_bounds():
+    """to_env is low + (a + 1)/2 · (high − low) (the affine map of [−1, 1] onto the Box, as spec.json
+    states it), clipped to the bounds as np.clip would; NaN stays NaN; to_agent inverts it."""
+    low, high = np.array([-2.0, 0.0, -0.5], np.float32), np.array([2.0, 1.0, 3.0], np.float32)
+    scale = ActionScale(low, high)
+    a = np.random.default_rng(0).uniform(-1.2, 1.2, size=(200, 3)).astype(np.float32)
+    a[0] = [np.nan, 1.0, -1.0]
+    expected = np.clip(low.astype(np.float64) + (a + 1.0) / 2.0 * (high.astype(np.float64) - low), low, high)
+    got = scale.to_env(a)
+    assert got.dtype == np.float32 and np.isnan(got[0, 0])
+    np.testing.assert_allclose(got, expected.astype(np.float32), rtol=1e-6, atol=1e-6)
+    assert np.all((got[1:] >= low) & (got[1:] <= high))
+    inside = np.abs(a[1:]) <= 1.0
+    np.testing.assert_allclose(scale.to_agent(got[1:])[inside], a[1:][inside], atol=1e-6)
