@@ -96,15 +96,33 @@ def deterministic_actions(actor: SquashedGaussianActor, obs: np.ndarray) -> np.n
     return np.tanh(_outputs(actor, np.asarray(obs, dtype=np.float32)[None])[0, :, : actor.act_dim])
 
 
+# Per actor: a noise buffer ``[population, 1, act_dim]``, one row view per agent, and its NumPy view.
+_NOISE: weakref.WeakKeyDictionary[SquashedGaussianActor, tuple[list[torch.Tensor], np.ndarray]]
+_NOISE = weakref.WeakKeyDictionary()
+
+
+def _noise(actor: SquashedGaussianActor, generators: Sequence[torch.Generator]) -> np.ndarray:
+    """Standard-normal noise ``[population, 1, act_dim]``, row k drawn from ``generators[k]``: the
+    numbers (and generator states) of ``torch.randn((1, act_dim), generator=generators[k])``, filled
+    into a buffer kept per actor (``normal_`` in place measured 0.9 µs against randn's 3.2)."""
+    cached = _NOISE.get(actor)
+    if cached is None or len(cached[0]) != len(generators):
+        buffer = torch.empty(len(generators), 1, actor.act_dim)
+        cached = ([buffer[k] for k in range(len(generators))], buffer.numpy())
+        _NOISE[actor] = cached
+    for row, generator in zip(cached[0], generators):
+        row.normal_(generator=generator)
+    return cached[1]
+
+
 def sample_actions(actor: SquashedGaussianActor, obs: np.ndarray, generators: Sequence[torch.Generator]) -> np.ndarray:
     """A policy sample ``tanh(mean + std·noise)`` per agent, ``[population, act_dim]``, for ``obs``
     ``[population, obs_dim]``; agent k's noise is drawn from ``generators[k]``."""
     mean, log_std = _mean_log_std(actor, np.asarray(obs, dtype=np.float32)[:, None, :])
-    if len(generators) == 1:
-        noise = torch.randn(mean.shape[1:], generator=generators[0]).numpy()[None]
-    else:
-        noise = np.stack([torch.randn(mean.shape[1:], generator=g).numpy() for g in generators])
-    return np.tanh(mean + np.exp(log_std) * noise)[:, 0]
+    u = np.exp(log_std)
+    u *= _noise(actor, generators)
+    u += mean
+    return np.tanh(u, out=u)[:, 0]
 
 
 _LOG_SQRT_2PI = np.float32(squashed_gaussian._LOG_SQRT_2PI)

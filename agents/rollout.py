@@ -13,6 +13,7 @@ rolls out derives from it:
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Protocol
@@ -281,8 +282,9 @@ def q_minus_return(
     beyond the limit, which biases the figure upward by at most γ^T times the soft value there.
 
     Args:
-        agent: Provides ``act_with_bonus`` (samples in (−1, 1) and α·log π for a batch of observations),
-            ``soft_q`` (for a batch of state-actions) and the discount.
+        agent: Provides ``sample_with_log_prob`` (samples in (−1, 1) and their per-dimension log π for a
+            batch of observations), ``entropy_terms`` (α·log π from those), ``soft_q`` (for a batch of
+            state-actions) and the discount.
         envs: At least one copy of the task per episode (the episodes run side by side).
         scale: Maps the agent's actions to the task's units.
         seeds: Reset seeds, one per episode.
@@ -292,7 +294,17 @@ def q_minus_return(
         The mean gap.
     """
     batch = _Lockstep(list(envs)[: len(seeds)], seeds)
-    episodes = rollout(batch, lambda obs: agent.act_with_bonus(obs, generator), 0, scale.to_env)
+    log_probs: list[np.ndarray] = []
+
+    def policy(obs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        action, log_prob = agent.sample_with_log_prob(obs, generator)
+        log_probs.append(log_prob)
+        return action, np.zeros(len(obs))  # the entropy terms come below, for all steps at once
+
+    episodes = rollout(batch, policy, 0, scale.to_env)
+    # α·log π of every step in one call (per step it cost more than the policy's sample), masked as rollout masks.
+    terms = np.asarray(agent.entropy_terms(np.stack(log_probs)), dtype=np.float64)
+    episodes = dataclasses.replace(episodes, entropy_terms=np.where(episodes.alive, terms, 0.0))
     q0 = np.asarray(agent.soft_q(episodes.starts, episodes.first_actions), dtype=np.float64)
     return float(np.mean(q0 - episodes.soft_returns(agent.settings.discount, first_entropy=False)))
 

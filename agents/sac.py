@@ -134,12 +134,17 @@ class SoftActorCritic(nn.Module):
         each drawn from the agent's own generator."""
         return numpy_actor.sample_actions(self.actor, obs, self.generators)
 
-    def act_with_bonus(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, np.ndarray]:
-        """Policy samples for observations ``[n, obs_dim]`` of a one-agent population (drawn from
-        ``generator``) and their entropy terms α·log π(a|s), ``[n]``. In NumPy, as training actions
-        are: the Q-bias diagnostic calls this once per step of its episodes."""
-        action, log_prob = numpy_actor.sample_with_log_prob(self.actor, obs, generator)
-        return action, self.temperature.bonus(torch.from_numpy(log_prob)[None])[0].numpy()
+    def sample_with_log_prob(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, np.ndarray]:
+        """Policy samples for observations ``[n, obs_dim]`` of a one-agent population, drawn from
+        ``generator``, and their per-dimension log-densities, ``[n, act_dim]`` each. In NumPy, as
+        training actions are: the Q-bias diagnostic calls this once per step of its episodes."""
+        return numpy_actor.sample_with_log_prob(self.actor, obs, generator)
+
+    def entropy_terms(self, log_prob: np.ndarray) -> np.ndarray:
+        """α·log π of a one-agent population for per-dimension log-densities ``[..., act_dim]``, ``[...]``
+        (:meth:`agents.temperature.Temperature.bonus`, with the temperature as it is now)."""
+        flat = torch.from_numpy(np.ascontiguousarray(log_prob, dtype=np.float32)).reshape(1, -1, log_prob.shape[-1])
+        return self.temperature.bonus(flat)[0].reshape(log_prob.shape[:-1]).numpy()
 
     @torch.inference_mode()
     def soft_q(self, obs: np.ndarray, action: np.ndarray) -> np.ndarray:

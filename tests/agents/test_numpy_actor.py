@@ -61,7 +61,7 @@ def test_numpy_actions_follow_weights_changed_in_place_and_replaced():
 
 @pytest.mark.parametrize("targets", [(-2.0,), (-1.0, -0.5)])  # one temperature, and one per action dimension
 def test_action_and_entropy_term_equal_torch_sample_and_bonus(targets):
-    """SoftActorCritic.act_with_bonus (NumPy) against torch: the actor's reparameterised sample, its
+    """SoftActorCritic.sample_with_log_prob (NumPy) and entropy_terms against torch: the actor's reparameterised sample, its
     per-dimension log-density from agents.squashed_gaussian, and Temperature.bonus (α·log π)."""
     from agents.sac import MemberSetup, SoftActorCritic
     from agents.settings import AgentSettings
@@ -75,7 +75,11 @@ def test_action_and_entropy_term_equal_torch_sample_and_bonus(targets):
     with torch.no_grad():
         action, log_prob, _ = agent.actor.sample(torch.from_numpy(obs)[None], [g_torch])
         expected_bonus = agent.temperature.bonus(log_prob)[0].numpy()
-    got_action, got_bonus = agent.act_with_bonus(obs, g_numpy)
+    got_action, got_log_prob = agent.sample_with_log_prob(obs, g_numpy)
+    got_bonus = agent.entropy_terms(got_log_prob)
+    # A stack of several steps' log-densities gives each step's terms as a call of its own would.
+    stacked = agent.entropy_terms(np.stack([got_log_prob, got_log_prob[::-1]]))
+    np.testing.assert_allclose(stacked, np.stack([got_bonus, got_bonus[::-1]]), rtol=1e-6, atol=1e-6)
     np.testing.assert_allclose(got_action, action[0].numpy(), rtol=1e-6, atol=1e-6)
     np.testing.assert_allclose(got_bonus, expected_bonus, rtol=1e-5, atol=1e-5)
     assert torch.equal(g_torch.get_state(), g_numpy.get_state())

@@ -100,7 +100,8 @@ def test_q_minus_return_by_hand():
     # so the bias is 5 − 2.368 = 2.632 (the entropy term of a₀ is not part of Q(s₀, a₀)).
     agent = SimpleNamespace(
         settings=SimpleNamespace(discount=0.9),
-        act_with_bonus=lambda obs, generator: (np.zeros((len(obs), 1), np.float32), np.full(len(obs), 0.2)),
+        sample_with_log_prob=lambda obs, generator: (np.zeros((len(obs), 1), np.float32), np.full((len(obs), 1), 0.4)),
+        entropy_terms=lambda log_prob: 0.5 * log_prob.sum(axis=-1),  # α = 0.5
         soft_q=lambda obs, action: np.full(len(obs), 5.0),
     )
     envs = [gym.wrappers.TimeLimit(_UnitReward(), max_episode_steps=3) for _ in range(2)]
