@@ -14,18 +14,22 @@ from agents.actor import SquashedGaussianActor
 from agents.nets import NONLINEARITIES
 
 
+# (population, action size): NumPy throughout, and small heads squashed in Python floats.
+@pytest.mark.parametrize("population,act_dim", [(4, 2), (1, 2), (2, 1), (1, 1)])
 @pytest.mark.parametrize("nonlinearity", sorted(NONLINEARITIES))
-def test_numpy_actions_equal_torch_samples(nonlinearity):
-    actor = SquashedGaussianActor(3, 2, (16, 16), nonlinearity, (-5.0, 1.0), torch.Generator().manual_seed(0), population=4)
+def test_numpy_actions_equal_torch_samples(nonlinearity, population, act_dim):
+    actor = SquashedGaussianActor(3, act_dim, (16, 16), nonlinearity, (-5.0, 1.0), torch.Generator().manual_seed(0), population=population)
     with torch.no_grad():  # push some raw log-stds past both soft limits and far past softplus's threshold
-        actor.body.linears()[-1].bias[:, :, 2:] = torch.tensor([30.0, -30.0])
-    obs = np.random.default_rng(1).normal(size=(4, 3)).astype(np.float32) * 3
-    torch_generators = [torch.Generator().manual_seed(10 + k) for k in range(4)]
-    numpy_generators = [torch.Generator().manual_seed(10 + k) for k in range(4)]
+        actor.body.linears()[-1].bias[..., act_dim:] = torch.tensor([30.0, -30.0][:act_dim])
+        if population * act_dim == 1:
+            actor.body.linears()[-1].bias[..., act_dim:] = -30.0
+    obs = np.random.default_rng(1).normal(size=(population, 3)).astype(np.float32) * 3
+    torch_generators = [torch.Generator().manual_seed(10 + k) for k in range(population)]
+    numpy_generators = [torch.Generator().manual_seed(10 + k) for k in range(population)]
     with torch.no_grad():
         expected = actor.sample(torch.from_numpy(obs).unsqueeze(1), torch_generators)[0][:, 0].numpy()
     got = numpy_actor.sample_actions(actor, obs, numpy_generators)
-    assert got.shape == (4, 2) and got.dtype == np.float32
+    assert got.shape == (population, act_dim) and got.dtype == np.float32
     np.testing.assert_allclose(got, expected, rtol=1e-6, atol=1e-6)
     assert all(torch.equal(a.get_state(), b.get_state()) for a, b in zip(torch_generators, numpy_generators))
 

@@ -133,3 +133,17 @@ def test_action_scale_maps_affinely_and_clips_to_the_bounds():
     assert np.all((got[1:] >= low) & (got[1:] <= high))
     inside = np.abs(a[1:]) <= 1.0
     np.testing.assert_allclose(scale.to_agent(got[1:])[inside], a[1:][inside], atol=1e-6)
+
+
+def test_action_scale_gives_the_same_bits_for_one_action_as_for_a_batch():
+    """A single small action (mapped in Python floats) gets exactly the bits the batched NumPy path
+    gives the same row, NaN and out-of-range values included."""
+    scale = ActionScale(np.array([-2.0, 0.0], np.float32), np.array([2.0, 1.0], np.float32))
+    rows = np.random.default_rng(1).uniform(-1.5, 1.5, size=(500, 2)).astype(np.float32)
+    rows[0] = [np.nan, 0.3]
+    batched = scale.to_env(rows)
+    singles = np.stack([scale.to_env(row) for row in rows])
+    pairs = np.concatenate([scale.to_env(rows[i:i + 2]) for i in range(0, 500, 2)])
+    assert singles.dtype == np.float32 and singles.shape == batched.shape
+    np.testing.assert_array_equal(singles, batched)  # NaN == NaN here
+    np.testing.assert_array_equal(pairs, batched)
