@@ -155,9 +155,10 @@ def run_loop(args: argparse.Namespace, out: dict[str, Any]) -> None:
     from agents.bench.act_cost import act_cost
 
     cost = act_cost()
-    out["act_us"] = {"warm": cost.warm_us, "after_update": cost.after_update_us}
+    out["act_us"] = {"warm": cost.warm_us, "after_update": cost.after_update_us, "after_pause": cost.after_pause_us}
     print(f"  one training action (NumPy, Pendulum size): {cost.warm_us:.0f} µs repeated at once, "
-          f"{cost.after_update_us:.0f} µs right after an update ({cost.ratio:.1f}x: the update leaves the caches cold)")
+          f"{cost.after_update_us:.0f} µs right after an update ({cost.ratio:.1f}x), "
+          f"{cost.after_pause_us:.0f} µs after a busy pause as long as an update")
 
 
 def run_sweep(args: argparse.Namespace, out: dict[str, Any]) -> None:
@@ -216,7 +217,7 @@ def empty_report(args: argparse.Namespace) -> dict[str, Any]:
         "env_steps_per_s": None,
         "loop_overhead_fraction": None,
         "loop_split": {"preset": None, "final_eval_only": None},
-        "act_us": {"warm": None, "after_update": None},
+        "act_us": {"warm": None, "after_update": None, "after_pause": None},
         "sweep_wall_s": {"jobs": None, "population": None},
         "parts": list(args.parts),
         "threads": 1,

@@ -1,10 +1,11 @@
 """What one training action costs when the loop asks for it, against the same call repeated at once.
 
-In the loop, each action is computed right after an update, whose few megabytes of operands and
-thousands of kernels displace the acting code's instructions and data from the caches; on a shared
-virtual machine, other tenants do the same between any two calls. The probe times the NumPy policy
-sample of a Pendulum-size agent (:meth:`agents.sac.SoftActorCritic.act_all`) both ways, so the loop's
-acting share can be read against what the arithmetic itself costs.
+In the loop, each action is computed right after an update. The probe times the NumPy policy sample
+of a Pendulum-size agent (:meth:`agents.sac.SoftActorCritic.act_all`) three ways: right after an
+update, repeated at once, and after a busy pause as long as an update that touches no data (a loop
+reading the clock). If the call after the pause costs what it costs after an update, its extra cost
+is not the update's doing (its operands displacing the acting code from the caches) but the time
+that passed: on a shared virtual machine other tenants run on the same cores in between.
 """
 
 from __future__ import annotations
@@ -23,10 +24,12 @@ from agents.sac import MemberSetup, SoftActorCritic
 
 @dataclass(frozen=True)
 class ActCost:
-    """Median microseconds of one ``act_all`` call, repeated back to back and right after an update."""
+    """Median microseconds of one ``act_all`` call: repeated back to back, right after an update, and
+    after a busy pause as long as the update before it."""
 
     warm_us: float
     after_update_us: float
+    after_pause_us: float
 
     @property
     def ratio(self) -> float:
@@ -45,14 +48,21 @@ def act_cost(rounds: int = 200) -> ActCost:
             rng.normal(size=case.obs_dim), rng.uniform(-1, 1, case.act_dim), float(rng.normal()), rng.normal(size=case.obs_dim), False
         )
     obs = rng.normal(size=(1, case.obs_dim)).astype(np.float32)
-    warm, cold = [], []
+    warm, cold, paused = [], [], []
     for _ in range(rounds):
-        agent.update(replay.sample(case.batch_size))
         t0 = time.perf_counter()
-        agent.act_all(obs)
+        agent.update(replay.sample(case.batch_size))
         t1 = time.perf_counter()
         agent.act_all(obs)
         t2 = time.perf_counter()
-        cold.append(t1 - t0)
-        warm.append(t2 - t1)
-    return ActCost(statistics.median(warm) * 1e6, statistics.median(cold) * 1e6)
+        agent.act_all(obs)
+        t3 = time.perf_counter()
+        while time.perf_counter() - t3 < t1 - t0:  # the pause: only the clock is read
+            pass
+        t4 = time.perf_counter()
+        agent.act_all(obs)
+        t5 = time.perf_counter()
+        cold.append(t2 - t1)
+        warm.append(t3 - t2)
+        paused.append(t5 - t4)
+    return ActCost(*(statistics.median(x) * 1e6 for x in (warm, cold, paused)))

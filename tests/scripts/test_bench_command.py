@@ -65,7 +65,7 @@ def test_last_line_is_json_with_every_key(tmp_path: Path) -> None:
         assert value > 0
     assert 0 < record["loop_overhead_fraction"] < 1
     assert record["env_steps_per_s"] > 0
-    assert set(record["act_us"]) == {"warm", "after_update"} and all(v > 0 for v in record["act_us"].values())
+    assert set(record["act_us"]) == {"warm", "after_update", "after_pause"} and all(v > 0 for v in record["act_us"].values())
     assert record["sweep_wall_s"] == {"jobs": None, "population": None}  # not run
     assert list(tmp_path.iterdir()) == []  # runs and sweeps go to temporary folders
 
