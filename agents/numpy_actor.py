@@ -5,7 +5,8 @@ in torch that is ≈25 operators at several µs of dispatch each, a measured 5 %
 loop. The same arithmetic on NumPy views of the actor's weights (shared memory, so they follow every
 optimiser step) measured 2–3x cheaper. The noise still comes from each agent's torch generator,
 drawn exactly as :meth:`agents.actor.SquashedGaussianActor.sample` draws it, so a run's generator
-stays on the same course whichever way it acts. Updates, evaluation and saved policies use torch.
+stays on the same course whichever way it acts. Evaluation (training's and the evaluate command's)
+acts here too; updates, exports and saved policies' single-observation ``act`` use torch.
 """
 
 from __future__ import annotations
