@@ -1,1 +1,1 @@
-"""Kiln agents: networks, replay, the soft actor-critic update, training loop, policies, exact solvers."""
+"""Kiln: soft actor-critic on CPU — train, evaluate, compare and hand on stochastic controllers."""

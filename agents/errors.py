@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from envs.errors import TaskError
+from kiln.envs.task_error import TaskError
 
 
 class KilnError(Exception):
@@ -79,6 +79,37 @@ class DivergenceError(KilnError):
             f"no policy was saved and {kept}: lower the learning rates or check the task's rewards, "
             "then start over with resume=false"
         )
+
+
+class CompareInputError(KilnError):
+    """Input the comparison cannot use: the message names the problem and the fix.
+
+    Part of Kiln's error family: every command prints it as ``kiln: error: <message>`` and exits
+    with status 2, so the message must be one line that a user can act on without reading code.
+    """
+
+    def __init__(self, problem: str, fix: str) -> None:
+        """Builds the message from its two halves.
+
+        Args:
+            problem: What is wrong, naming the paths or keys involved.
+            fix: What the user can do about it.
+        """
+        self.problem = problem
+        self.fix = fix
+        super().__init__(f"{problem}; fix: {fix}")
+
+
+
+class SweepError(KilnError):
+    """A sweep's launcher could not finish: a cluster out of reach, a lost job or worker, a failed or
+    stopped run. The message names the run or job and what to do; the exit code is the run's own
+    (2 bad input, 3 divergence, 130 / 143 stopped) or 1 for a worker process killed outside Kiln.
+    """
+
+    def __init__(self, message: str, exit_code: int = 2, prefix: str = "error") -> None:
+        super().__init__(message)
+        self.exit_code, self.prefix = exit_code, prefix
 
 
 # Every error a command prints as one line: Kiln's own and the tasks' (envs/ has its own).

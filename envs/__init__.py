@@ -3,6 +3,6 @@
 Importing this package registers Kiln's tasks with Gymnasium under the ``kiln/`` namespace.
 """
 
-from envs.registration import register_kiln_tasks
+from kiln.envs.registration import register_kiln_tasks
 
 register_kiln_tasks()

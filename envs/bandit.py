@@ -8,7 +8,7 @@ away from it:
 
 The episode ends after that single step (terminated=True), so there is no bootstrapping at all; the
 observation is a constant. Its soft-optimal policy is computed independently of any agent by
-quadrature in ``envs.bandit_solution``.
+quadrature in ``kiln.envs.bandit_solution``.
 """
 
 from __future__ import annotations
@@ -18,9 +18,9 @@ from dataclasses import dataclass
 import numpy as np
 from gymnasium import spaces
 
-from envs.errors import TaskError
-from envs.task_base import BatchedDynamics
-from envs.task_options import finite_number
+from kiln.envs.task_base import BatchedDynamics
+from kiln.envs.task_error import TaskError
+from kiln.envs.task_options import finite_number
 
 DEFAULT_STIFFNESS = 4.0
 DEFAULT_TARGET = 0.5

@@ -25,9 +25,9 @@ from dataclasses import dataclass, fields
 import numpy as np
 from gymnasium import spaces
 
-from envs.errors import TaskError
-from envs.task_base import BatchedDynamics
-from envs.task_options import finite_number
+from kiln.envs.task_base import BatchedDynamics
+from kiln.envs.task_error import TaskError
+from kiln.envs.task_options import finite_number
 
 
 @dataclass(frozen=True)

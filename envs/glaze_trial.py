@@ -5,7 +5,7 @@ or try an experimental glaze that almost always comes out unsaleable but, rarely
 worth far more. In expectation the standard glaze is better, so a planner that treats the kiln's
 outcome as chance (the fixed-dynamics soft backup) fires standard; a planner that lets inference also
 "choose" the outcome (the exact-posterior, log-expectation-exp backup) chases the prize. The task exists
-to show that risk-seeking bias next to ``agents.exact.soft_dp``.
+to show that risk-seeking bias next to ``kiln.exact.soft_dp``.
 
 States: 0 = load ready (the decision), 1 = prize piece out of the kiln, 2 = load done (absorbing).
 Actions: 0 = standard glaze, 1 = experimental glaze. In states 1 and 2 both actions do the same thing.

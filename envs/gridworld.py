@@ -1,8 +1,8 @@
 """The 5×5 gridworld of Sutton & Barto, *Reinforcement Learning: An Introduction*, 2nd ed., Example 3.8.
 
 A finite MDP with a printed optimal value table (Figure 3.5). Kiln's exact soft solver
-(``agents.exact.soft_dp``) is checked against it in its α → 0 limit; the data lives here, beside the
-other tabular task (``envs.glaze_trial``), because tasks never import the learner.
+(``kiln.exact.soft_dp``) is checked against it in its α → 0 limit; the data lives here, beside the
+other tabular task (``kiln.envs.glaze_trial``), because tasks never import the learner.
 """
 
 from __future__ import annotations

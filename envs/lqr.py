@@ -8,7 +8,7 @@ burner heats the chamber only, and draughts and fuel-pressure ripple act as Gaus
     r_t     = -(x_t' Q x_t + u_t' R u_t)        (cost of the state the action was taken in)
 
 so the reward belongs to the pre-transition state x_t, matching the Riccati solution in
-``envs.lqr_solution``. The task never terminates; episodes end only by the registered time limit.
+``kiln.envs.lqr_solution``. The task never terminates; episodes end only by the registered time limit.
 Its exact maximum-entropy solution is known in closed form, which is why Kiln ships it.
 
 Every matrix can be replaced through keyword arguments (1-D or n-D state, any number of inputs).
@@ -25,9 +25,9 @@ import numpy as np
 from gymnasium import spaces
 from numpy.typing import ArrayLike
 
-from envs.errors import TaskError
-from envs.task_base import BatchedDynamics
-from envs.task_options import finite_number
+from kiln.envs.task_base import BatchedDynamics
+from kiln.envs.task_error import TaskError
+from kiln.envs.task_options import finite_number
 
 # Default plant: chamber relaxes to ambient (0.85) and gains from a warmer wall (0.10); the wall
 # follows the chamber slowly (0.05, 0.93). Eigenvalues 0.97 and 0.81: stable without control, so an

@@ -12,8 +12,8 @@ import gymnasium as gym
 import numpy as np
 from gymnasium.vector import VectorEnv
 
-from envs.errors import TaskError
-from envs.task_spec import TaskSpec
+from kiln.envs.task_error import TaskError
+from kiln.envs.task_spec import TaskSpec
 
 Built = TypeVar("Built", gym.Env, VectorEnv)
 _NOT_FOUND = (gym.error.NameNotFound, gym.error.NamespaceNotFound, gym.error.VersionNotFound)
@@ -61,7 +61,7 @@ def make_vector_env(spec: TaskSpec, copies: int) -> VectorEnv:
     if registered is not None and registered.vector_entry_point is None:
         raise TaskError(
             f"{spec.id} has no batched form (vector_entry_point): use a Kiln task such as "
-            "kiln/FiringHold-v0, or register the task with envs.task_entry.register_task"
+            "kiln/FiringHold-v0, or register the task with kiln.envs.task_entry.register_task"
         )
     vector_env = _created(
         spec,

@@ -1,6 +1,6 @@
 """Registers Kiln's own tasks with Gymnasium under the ``kiln/`` namespace.
 
-Each task is a ``BatchedDynamics`` class; ``envs.task_entry.register_task`` gives it a single-copy
+Each task is a ``BatchedDynamics`` class; ``kiln.envs.task_entry.register_task`` gives it a single-copy
 ``entry_point`` and a batched ``vector_entry_point``, so both ``gymnasium.make(id)`` and
 ``gymnasium.make_vec(id, num_envs=N, vectorization_mode="vector_entry_point")`` work. Keyword arguments to
 either are the task's options (the fields of its ``options_type``; see each task's module).
@@ -10,15 +10,15 @@ from __future__ import annotations
 
 import gymnasium
 
-from envs.bandit import DamperTrimDynamics
-from envs.dock import CarDockDynamics
-from envs.lqr import FiringHoldDynamics
-from envs.task_base import BatchedDynamics
-from envs.task_entry import register_task
+from kiln.envs.bandit import DamperTrimDynamics
+from kiln.envs.dock import CarDockDynamics
+from kiln.envs.lqr import FiringHoldDynamics
+from kiln.envs.task_base import BatchedDynamics
+from kiln.envs.task_entry import register_task
 
 # id -> (dynamics, time limit or None)
 KILN_TASKS: dict[str, tuple[type[BatchedDynamics], int | None]] = {
-    # Linear-quadratic set-point holding with Gaussian noise; exact soft solution in envs.lqr_solution.
+    # Linear-quadratic set-point holding with Gaussian noise; exact soft solution in kiln.envs.lqr_solution.
     "kiln/FiringHold-v0": (FiringHoldDynamics, 200),
     # One-step bandit on a tanh-bounded action; terminates itself, so no time limit is needed.
     "kiln/DamperTrim-v0": (DamperTrimDynamics, None),

@@ -1,8 +1,8 @@
 """The one definition of a Kiln task's dynamics, written for a batch of copies at once.
 
 Each Kiln task writes its dynamics once, on arrays with a leading copy axis, and takes its options from
-a frozen dataclass. ``envs.task_env`` runs one copy as a ``gymnasium.Env``, ``envs.task_vector`` runs
-many as a ``gymnasium.vector.VectorEnv``, and ``envs.task_entry`` registers both for any dynamics class.
+a frozen dataclass. ``kiln.envs.task_env`` runs one copy as a ``gymnasium.Env``, ``kiln.envs.task_vector`` runs
+many as a ``gymnasium.vector.VectorEnv``, and ``kiln.envs.task_entry`` registers both for any dynamics class.
 Keeping a single batched definition means the single and vector forms cannot drift apart.
 """
 
@@ -20,7 +20,7 @@ class BatchedDynamics(abc.ABC):
 
     Subclasses set the class attribute ``options_type``: a frozen dataclass whose fields are the task's
     options (the keyword arguments of ``gymnasium.make``), with defaults, validated in its
-    ``__post_init__`` (raising ``envs.errors.TaskError``). Their ``__init__(options)`` calls this one and
+    ``__post_init__`` (raising ``kiln.envs.task_error.TaskError``). Their ``__init__(options)`` calls this one and
     sets ``observation_space`` and ``action_space`` (float32 Boxes for a single copy) and ``state_size``;
     they implement the three abstract methods below.
     """

@@ -16,10 +16,10 @@ from typing import Any
 import gymnasium
 from gymnasium.vector import AutoresetMode
 
-from envs.task_base import BatchedDynamics
-from envs.task_env import TaskEnv
-from envs.task_options import options_from_kwargs
-from envs.task_vector import TaskVectorEnv
+from kiln.envs.task_base import BatchedDynamics
+from kiln.envs.task_env import TaskEnv
+from kiln.envs.task_options import options_from_kwargs
+from kiln.envs.task_vector import TaskVectorEnv
 
 
 # Entry points are small frozen dataclasses rather than closures: they compare equal when they build

@@ -7,8 +7,8 @@ from typing import Any
 import gymnasium as gym
 import numpy as np
 
-from envs.errors import TaskError
-from envs.task_base import BatchedDynamics
+from kiln.envs.task_base import BatchedDynamics
+from kiln.envs.task_error import TaskError
 
 
 class TaskEnv(gym.Env[np.ndarray, np.ndarray]):

@@ -11,7 +11,7 @@ import math
 from collections.abc import Mapping
 from typing import Any, TypeVar
 
-from envs.errors import TaskError
+from kiln.envs.task_error import TaskError
 
 Options = TypeVar("Options")
 

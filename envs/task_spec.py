@@ -10,7 +10,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from envs.errors import TaskError
+from kiln.envs.task_error import TaskError
 
 _RECORD_KEYS = ("id", "kwargs", "max_episode_steps")
 

@@ -12,8 +12,8 @@ import numpy as np
 from gymnasium.vector import AutoresetMode, VectorEnv
 from gymnasium.vector.utils import batch_space
 
-from envs.errors import TaskError
-from envs.task_base import BatchedDynamics
+from kiln.envs.task_base import BatchedDynamics
+from kiln.envs.task_error import TaskError
 
 _SUPPORTED_MODES = (AutoresetMode.NEXT_STEP, AutoresetMode.SAME_STEP)
 

@@ -22,7 +22,7 @@ import os
 import time
 from typing import Any
 
-from kiln_cli._cli import OneLineParser, fail, guarded
+from kiln.cli.common import OneLineParser, fail, guarded
 
 PARTS = ("gemm", "update", "population", "loop", "sweep")
 POPULATION = 8  # K of the population part: 8 = the 2-target × 4-seed comparison in one process
@@ -71,7 +71,7 @@ def _check_budget(steps: int | None) -> None:
     """Refuse a loop or sweep budget that ends within the preset's warm-up (no update would run)."""
     if steps is None:
         return
-    from agents.presets import compose_config
+    from kiln.config.presets import compose_config
 
     warmup = compose_config("train", ["env=pendulum"])["collect"]["warmup_steps"]
     if steps <= warmup:
@@ -86,10 +86,10 @@ def _fmt(x: float | None, spec: str = ".1f") -> str:
 def run_gemm_and_update(args: argparse.Namespace, out: dict[str, Any]) -> None:
     """GEMM rates at each case's shapes and the 256² square; with ``update``, updates/s and fractions
     (update and GEMM rounds alternate, so both see the same load)."""
-    from agents.bench.cases import CASES
-    from agents.bench.gemm_fraction import measure_update_vs_gemm
-    from agents.bench.gemm_rate import shape_rates, square_gflops, weighted_gflops
-    from agents.bench.gemm_shapes import total_flops, update_gemms
+    from kiln.benchmark.cases import CASES
+    from kiln.benchmark.gemm_fraction import measure_update_vs_gemm
+    from kiln.benchmark.gemm_rate import shape_rates, square_gflops, weighted_gflops
+    from kiln.benchmark.gemm_shapes import total_flops, update_gemms
 
     with_update = "update" in args.parts
     print("GEMM rate at each update's shapes (float32, best time per shape, FLOP-weighted)"
@@ -119,8 +119,8 @@ def run_gemm_and_update(args: argparse.Namespace, out: dict[str, Any]) -> None:
 
 def run_population(args: argparse.Namespace, out: dict[str, Any]) -> None:
     """K agents as one K-member agent against the same K agents updated one after another."""
-    from agents.bench.cases import CASES
-    from agents.bench.update_speed import population_speed
+    from kiln.benchmark.cases import CASES
+    from kiln.benchmark.update_speed import population_speed
 
     print(f"population (K = {POPULATION}; agent-updates/s, each agent its own minibatch):")
     for case in reversed(CASES):  # small first: the size populations are for
@@ -141,10 +141,10 @@ def _loop_line(name: str, split: Any) -> str:
 
 def run_loop(args: argparse.Namespace, out: dict[str, Any]) -> None:
     """The Pendulum-v1 preset run, and the same run evaluating and checkpointing only at its end."""
-    from agents.bench.loop_split import measure_loop, pendulum_overrides
+    from kiln.benchmark.loop_split import measure_loop, pendulum_overrides
 
     budget = "the preset's budget" if args.steps is None else f"{args.steps} steps"
-    print(f"loop (Pendulum-v1 preset, {budget}, trained through agents.trainer.train; shares of loop time):")
+    print(f"loop (Pendulum-v1 preset, {budget}, trained through kiln.training.trainer.train; shares of loop time):")
     for name, periodic, label in (("preset", True, "as the preset"), ("final_eval_only", False, "eval+checkpoint at end")):
         split = measure_loop(pendulum_overrides(args.steps, periodic))
         out["loop_split"][name] = {"steps": split.steps, "loop_s": split.loop_s, "env_steps_per_s": split.env_steps_per_s,
@@ -152,7 +152,7 @@ def run_loop(args: argparse.Namespace, out: dict[str, Any]) -> None:
         print(_loop_line(label, split))
     preset = out["loop_split"]["preset"]
     out["env_steps_per_s"], out["loop_overhead_fraction"] = preset["env_steps_per_s"], preset["overhead_fraction"]
-    from agents.bench.act_cost import act_cost
+    from kiln.benchmark.act_cost import act_cost
 
     cost = act_cost()
     out["act_us"] = {"warm": cost.warm_us, "after_update": cost.after_update_us, "after_pause": cost.after_pause_us}
@@ -163,7 +163,7 @@ def run_loop(args: argparse.Namespace, out: dict[str, Any]) -> None:
 
 def run_sweep(args: argparse.Namespace, out: dict[str, Any]) -> None:
     """Wall time of the 2-target × 4-seed comparison as separate jobs and as populations."""
-    from agents.bench.sweep_wall import population_launcher_exists, sweep_wall_seconds
+    from kiln.benchmark.sweep_wall import population_launcher_exists, sweep_wall_seconds
 
     budget = "the preset's budget" if args.steps is None else f"{args.steps} steps"
     print(f"sweep (Pendulum-v1, 2 targets × 4 seeds, {budget}, all {os.cpu_count()} cores):")
@@ -181,10 +181,10 @@ def run_sweep(args: argparse.Namespace, out: dict[str, Any]) -> None:
 def run_profile(args: argparse.Namespace) -> None:
     """Per-operator tables of the update (default, small, and a population of small agents), and the
     per-shape GEMM tables."""
-    from agents.bench.cases import DEFAULT, SMALL
-    from agents.bench.gemm_rate import shape_rates
-    from agents.bench.gemm_shapes import update_gemms
-    from agents.bench.update_profile import operator_table, profile_update
+    from kiln.benchmark.cases import DEFAULT, SMALL
+    from kiln.benchmark.gemm_rate import shape_rates
+    from kiln.benchmark.gemm_shapes import update_gemms
+    from kiln.benchmark.update_profile import operator_table, profile_update
 
     for case, k in ((DEFAULT, 1), (SMALL, 1), (SMALL, POPULATION)):
         rows, us = profile_update(case.obs_dim, case.act_dim, case.settings(), population=k, updates=args.updates)

@@ -15,17 +15,17 @@ import os
 import sys
 from collections.abc import Sequence
 
-from agents.presets import PRESETS_ENV
-from kiln_cli._cli import OneLineParser
+from kiln.cli.common import OneLineParser
+from kiln.config.presets import PRESETS_ENV
 
 # name → (module, one-line summary, whether it is a Hydra app that reads sys.argv itself)
 COMMANDS: dict[str, tuple[str, str, bool]] = {
-    "train": ("kiln_cli.train", "train an agent from configs/train.yaml (key=value overrides, -m for sweeps)", True),
-    "evaluate": ("kiln_cli.evaluate", "run evaluation episodes of a saved policy (policy=<run folder>)", True),
-    "compare": ("kiln_cli.compare", "compare runs grouped by a config key and write a report (DIR ...)", False),
-    "verify": ("kiln_cli.verify", "check Kiln against exact answers (--quick: seconds)", False),
-    "bench": ("kiln_cli.bench", "measure update speed on this CPU", False),
-    "export": ("kiln_cli.export", "write a saved policy as an ONNX controller (POLICY --out FILE)", False),
+    "train": ("kiln.cli.train", "train an agent from configs/train.yaml (key=value overrides, -m for sweeps)", True),
+    "evaluate": ("kiln.cli.evaluate", "run evaluation episodes of a saved policy (policy=<run folder>)", True),
+    "compare": ("kiln.cli.compare", "compare runs grouped by a config key and write a report (DIR ...)", False),
+    "verify": ("kiln.cli.verify", "check Kiln against exact answers (--quick: seconds)", False),
+    "bench": ("kiln.cli.bench", "measure update speed on this CPU", False),
+    "export": ("kiln.cli.export", "write a saved policy as an ONNX controller (POLICY --out FILE)", False),
 }
 
 
@@ -69,7 +69,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = _parser()
     args = parser.parse_args(own)
     if args.version:
-        from agents.version import KILN_VERSION
+        from kiln.version import KILN_VERSION
 
         print(f"kiln {KILN_VERSION}")
         return 0

@@ -15,12 +15,12 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
-from agents.compare.bootstrap import MAX_RESAMPLES
-from agents.compare.grouping import TARGET_ENTROPY_KEY
-from agents.compare.report import check_out_dir, default_out_dir, input_root, terminal_summary, write_report
-from agents.compare.runs import listed, load_runs, select_finished
-from agents.compare.summary import Comparison, summarise
-from kiln_cli._cli import OneLineParser, guarded
+from kiln.cli.common import OneLineParser, guarded
+from kiln.comparison.bootstrap import MAX_RESAMPLES
+from kiln.comparison.grouping import TARGET_ENTROPY_KEY
+from kiln.comparison.report import check_out_dir, default_out_dir, input_root, terminal_summary, write_report
+from kiln.comparison.runs import listed, load_runs, select_finished
+from kiln.comparison.summary import Comparison, summarise
 
 
 def _parser() -> OneLineParser:
@@ -82,7 +82,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         argv: Arguments without the program name (default: the command line).
 
     Returns:
-        The exit status (bad input exits 2 through :func:`kiln_cli._cli.fail` instead).
+        The exit status (bad input exits 2 through :func:`kiln.cli.common.fail` instead).
     """
     parser = _parser()
     args = parser.parse_args(argv)

@@ -17,15 +17,15 @@ from typing import Any
 import hydra
 from omegaconf import DictConfig, OmegaConf
 
-from agents import checks
-from agents.errors import ConfigError
-from agents.policy_eval import EvaluationPlan, check_task_module, evaluate_policy, plan_evaluation
-from agents.policy_io import SavedPolicy, load_policy, resolve_policy_folder
-from agents.run_folder import POLICY, RunFolder, write_json_atomic
-from agents.streams import LARGEST_EPISODES, LARGEST_SEED
-from agents.presets import CONFIG_DIR
-from agents.writable import check_writable, kept_only_if_complete
-from kiln_cli._cli import check_overrides, guarded, plural, stop_politely_on_sigterm
+from kiln.cli.common import check_overrides, guarded, plural, stop_politely_on_sigterm
+from kiln.config import checks
+from kiln.config.presets import CONFIG_DIR
+from kiln.config.streams import LARGEST_EPISODES, LARGEST_SEED
+from kiln.errors import ConfigError
+from kiln.evaluation.policy_eval import EvaluationPlan, check_task_module, evaluate_policy, plan_evaluation
+from kiln.storage.policy_io import SavedPolicy, load_policy, resolve_policy_folder
+from kiln.storage.run_folder import POLICY, RunFolder, write_json_atomic
+from kiln.storage.writable import check_writable, kept_only_if_complete
 
 
 @dataclass(frozen=True)

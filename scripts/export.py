@@ -14,9 +14,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from kiln_cli._cli import OneLineParser, guarded
-
-from agents.export import (
+from kiln.cli.common import OneLineParser, guarded
+from kiln.onnx_export import (
     CAUTION,
     DEFAULT_OPSET,
     SUPPORTED_OPSETS,

@@ -16,18 +16,17 @@ import hydra
 from hydra.core.hydra_config import HydraConfig
 from hydra.core.override_parser.overrides_parser import OverridesParser
 from hydra.errors import HydraException
-from hydra_plugins.kiln_population_launcher import register as register_population_launcher
-from hydra_plugins.kiln_population_launcher.settings import TARGET as POPULATION_LAUNCHER
-from hydra_plugins.kiln_population_launcher.settings import check_n_jobs, worker_count
-from hydra_plugins.kiln_slurm_launcher import register as register_slurm_launcher
+from hydra_plugins.kiln_launchers import register as register_launchers
 from omegaconf import DictConfig, OmegaConf
 
-from agents.presets import CONFIG_DIR
-from agents.run_folder import RunFolder, RunResult
-from agents.trainer import check_run, train
-from agents.presets import compose_node
-from agents.writable import check_writable
-from kiln_cli._cli import check_overrides, expand_overrides, guarded, stop_politely_on_sigterm
+from kiln.cli.common import check_overrides, expand_overrides, guarded, stop_politely_on_sigterm
+from kiln.config.presets import CONFIG_DIR, compose_node
+from kiln.launchers.launcher_settings import TARGET as POPULATION_LAUNCHER
+from kiln.launchers.launcher_settings import check_n_jobs, worker_count
+from kiln.storage.run_folder import RunResult
+from kiln.storage.run_summary import describe_run
+from kiln.storage.writable import check_writable
+from kiln.training.trainer import check_run, train
 
 
 def check_output_folder(args: list[str]) -> None:
@@ -75,24 +74,7 @@ def check_launcher_settings(args: list[str]) -> None:
 
 def report(run_dir: Path, result: RunResult) -> None:
     """Tell the user where everything is and how the final evaluation went."""
-    if result.skipped:
-        print(f"{run_dir} already holds a finished run (result.json); left as it is.")
-        return
-    ev, seeds = result.evaluation, result.evaluation_seeds
-    det = "deterministic" if result.eval_deterministic else "stochastic"
-    episodes = f"{len(seeds)} {det} episode{'s' if len(seeds) != 1 else ''}"
-    print(f"\nrun folder   {run_dir}")
-    print(f"TensorBoard  tensorboard --logdir {run_dir}")
-    print(f"policy       {RunFolder(run_dir).policy_path}")
-    print(
-        f"evaluation   {episodes} of {result.env_id} after {result.steps} steps (reset seeds "
-        f"{seeds[0]}..{seeds[-1]}): return {ev['return_mean']:.1f} ± {ev['return_std']:.1f} "
-        f"(min {ev['return_min']:.1f}, max {ev['return_max']:.1f})"
-    )
-    mode = "" if result.eval_deterministic else " deterministic=false"
-    print(f"reproduce    kiln evaluate policy={run_dir}{mode}   (same reset seeds, same sampling)")
-    ups = result.updates_per_s
-    print(f"time         {result.wall_time_s:.0f} s wall, {result.updates} updates" + (f" at {ups:.0f}/s" if ups else ""))
+    print(describe_run(run_dir, result))
 
 
 @hydra.main(config_path=str(CONFIG_DIR), config_name="train", version_base="1.3")
@@ -107,8 +89,7 @@ def _hydra_entry(cfg: DictConfig) -> float:
 def main() -> None:
     """Check the command line, then hand it to Hydra."""
     stop_politely_on_sigterm()
-    register_slurm_launcher()  # launcher=slurm; an editable install hides it from Hydra's plugin scan
-    register_population_launcher()  # launcher=population; the same
+    register_launchers()  # launcher=population and launcher=slurm: an editable install hides them from Hydra's scan
     args = sys.argv[1:]
     guarded(lambda: (check_overrides("train", args, check_run), check_output_folder(args), check_launcher_settings(args),
                      _hydra_entry()))  # fmt: skip

@@ -14,10 +14,10 @@ import os
 import sys
 from pathlib import Path
 
-from agents.presets import PRESETS_ENV
-from agents.run_folder import write_text_atomic
-from agents.writable import check_writable, reason
-from kiln_cli._cli import OneLineParser, fail, guarded
+from kiln.cli.common import OneLineParser, fail, guarded
+from kiln.config.presets import PRESETS_ENV
+from kiln.storage.run_folder import write_text_atomic
+from kiln.storage.writable import check_writable, reason
 
 _OUT_FIX = "pass --out with a file in a folder you can write to"
 
@@ -43,7 +43,7 @@ def main(argv: list[str] | None = None) -> int:
     # The checks compare Kiln's own task presets with their exact answers; a user preset of the same
     # name would change the task under test, so user preset folders are not searched here.
     os.environ.pop(PRESETS_ENV, None)
-    from agents.exact.verify import format_table, report_json, run_verify  # torch loads only past the checks
+    from kiln.exact.verify_table import format_table, report_json, run_verify  # torch loads only past the checks
 
     report = run_verify(args.quick, args.seed, say=lambda line: print(line, flush=True))
     print(format_table(report), flush=True)

@@ -6,7 +6,7 @@ import pickle
 
 import torch
 
-from tests.pickle_bomb import pickle_bomb, torch_bomb
+from tests.support.pickle_bomb import pickle_bomb, torch_bomb
 
 
 def test_plain_pickle_creates_the_marker_when_loaded(tmp_path):

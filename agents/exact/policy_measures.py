@@ -1,11 +1,11 @@
 """Measure a saved squashed-Gaussian policy in the task's own units: mean actions and log-densities.
 
 The mean action is computed by quadrature (no sampling noise); the sampler feeds the policy's
-stochastic actions with their task-unit log-densities to :func:`agents.rollout.soft_returns`.
+stochastic actions with their task-unit log-densities to :func:`kiln.evaluation.rollout.soft_returns`.
 
 The agent works in (−1, 1); a task's Box may be wider. Its log-density in task units is
 log π_env(a) = log π_agent(a′) − Σᵢ log(half-rangeᵢ) for a = centre + half-range · a′ (change of
-variables for an affine map), which is what the exact answers of ``envs.lqr_solution`` measure.
+variables for an affine map), which is what the exact answers of ``kiln.envs.lqr_solution`` measure.
 """
 
 from __future__ import annotations
@@ -13,8 +13,8 @@ from __future__ import annotations
 import numpy as np
 import torch
 
-from agents.policy_io import SavedPolicy
-from agents.rollout import Sampler
+from kiln.evaluation.rollout import Sampler
+from kiln.storage.policy_io import SavedPolicy
 
 # Probabilists' Gauss–Hermite nodes for E over a Gaussian: exact for polynomials of degree < 64, so
 # for the smooth tanh of a narrow Gaussian the rule's error is far below float32 rounding.
@@ -53,7 +53,7 @@ def actor_sampler(policy: SavedPolicy, generator: torch.Generator) -> Sampler:
         generator: Source of the policy's noise.
 
     Returns:
-        A sampler for :func:`agents.rollout.soft_returns`.
+        A sampler for :func:`kiln.evaluation.rollout.soft_returns`.
     """
     log_half = float(np.sum(np.log(_half_range(policy))))
 

@@ -1,6 +1,6 @@
 """The exact solver and the squashed Gaussian against outside sources, one row per check.
 
-Each function computes one comparison and returns a :class:`~agents.exact.check_row.CheckRow`; the
+Each function computes one comparison and returns a :class:`~kiln.exact.check_row.CheckRow`; the
 unit tests assert on these rows and ``scripts/verify.py`` prints them, so the two cannot drift apart.
 Sources: Sutton & Barto, *Reinforcement Learning: An Introduction*, 2nd ed. (2018), Example 3.8 /
 Figure 3.5; the log-sum-exp bound; Haarnoja et al. 2018 (arXiv 1812.05905), Appendix C, and
@@ -17,10 +17,10 @@ import torch
 from torch.distributions import Normal, TransformedDistribution
 from torch.distributions.transforms import TanhTransform
 
-from agents import squashed_gaussian
-from agents.exact.check_row import CheckRow, absolute_row
-from agents.exact.soft_dp import SoftSolution, soft_value_iteration
-from envs.gridworld import BOOK_DISCOUNT, BOOK_SOURCE, BOOK_V_STAR, book_gridworld
+from kiln.envs.gridworld import BOOK_DISCOUNT, BOOK_SOURCE, BOOK_V_STAR, book_gridworld
+from kiln.exact.check_row import CheckRow, absolute_row
+from kiln.exact.soft_dp import SoftSolution, soft_value_iteration
+from kiln.learner import squashed_gaussian
 
 # Solver tolerance of every gridworld solve: far below the book's 0.05 rounding and the bound's slack.
 SOLVER_TOLERANCE = 1e-12

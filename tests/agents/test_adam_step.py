@@ -1,10 +1,10 @@
-"""agents.sac.adam_step takes exactly the step torch's fused Adam takes."""
+"""kiln.learner.sac.adam_step takes exactly the step torch's fused Adam takes."""
 
 from __future__ import annotations
 
 import torch
 
-from agents.sac import _adam, adam_step, clear_grads
+from kiln.learner.sac import _adam, adam_step, clear_grads
 
 
 def test_adam_step_is_bitwise_torch_adam_step() -> None:

@@ -4,10 +4,10 @@
 import pytest
 from torch.utils.flop_counter import FlopCounterMode
 
-from agents.bench.cases import DEFAULT, SMALL
-from agents.bench.gemm_shapes import Gemm, merge, total_flops, update_gemms
-from agents.bench.update_speed import build_agent, random_batch
-from agents.presets import compose_config
+from kiln.benchmark.cases import DEFAULT, SMALL
+from kiln.benchmark.gemm_shapes import Gemm, merge, total_flops, update_gemms
+from kiln.benchmark.update_speed import build_agent, random_batch
+from kiln.config.presets import compose_config
 
 
 def test_hand_arithmetic_on_a_tiny_network():

@@ -5,9 +5,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from agents.compare import bootstrap
-from agents.compare.bootstrap import bootstrap_distribution, iqm_interval, percentile_interval
-from agents.compare.stats import iqm, probability_of_improvement
+from kiln.comparison import bootstrap
+from kiln.comparison.bootstrap import bootstrap_distribution, iqm_interval, percentile_interval
+from kiln.comparison.stats import iqm, probability_of_improvement
 
 RESAMPLES = 999
 FINALS = np.array([-310.5, -250.0, -402.25, -198.0, -275.5, -330.0, -222.75, -289.0])

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from tests.agents.compare_fixtures import run_config, training_scalars, write_run
+from tests.support.compare_fixtures import run_config, training_scalars, write_run
 
 SCRIPT = Path(__file__).resolve().parents[2] / "scripts" / "compare.py"
 RESAMPLES = 500

@@ -5,7 +5,7 @@ from pathlib import Path
 import numpy as np
 from torch.utils.tensorboard import SummaryWriter
 
-from agents.compare.events import ScalarSeries, has_event_files, read_scalars
+from kiln.comparison.events import ScalarSeries, has_event_files, read_scalars
 
 
 def test_reads_back_every_value_written(tmp_path: Path) -> None:

@@ -5,10 +5,10 @@ from pathlib import Path
 
 import pytest
 
-from agents.compare.errors import CompareInputError
-from agents.compare.grouping import check_metric, check_one_task, choose_step, group_runs
-from agents.compare.runs import find_run_dirs, load_run, load_runs
-from tests.agents.compare_fixtures import run_config, training_scalars, write_run
+from kiln.comparison.grouping import check_metric, check_one_task, choose_step, group_runs
+from kiln.comparison.runs import find_run_dirs, load_run, load_runs
+from kiln.errors import CompareInputError
+from tests.support.compare_fixtures import run_config, training_scalars, write_run
 
 TARGET = "agent.temperature.target_entropy"
 

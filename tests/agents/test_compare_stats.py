@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from agents.compare.stats import iqm, performance_profile, probability_of_improvement
+from kiln.comparison.stats import iqm, performance_profile, probability_of_improvement
 
 SCORES = np.array([3.1, -2.0, 7.5, 0.4, 9.9, 5.5, 1.2, -4.4, 6.0, 2.2, 8.1, -0.7])
 
@@ -14,7 +14,7 @@ SCORES = np.array([3.1, -2.0, 7.5, 0.4, 9.9, 5.5, 1.2, -4.4, 6.0, 2.2, 8.1, -0.7
 @pytest.mark.parametrize("n", range(1, 13))
 def test_iqm_equals_scipy_trim_mean_for_every_run_count(n: int) -> None:
     sample = SCORES[:n]
-    # Source: scipy.stats.trim_mean(x, 0.25) is the IQM of Agarwal et al. 2021 (DESIGN.md, "Comparing runs").
+    # Source: scipy.stats.trim_mean(x, 0.25) is the IQM of Agarwal et al. 2021 (Agarwal et al. 2021, NeurIPS, Section 4: the 25 % trimmed mean).
     np.testing.assert_allclose(iqm(sample), stats.trim_mean(sample, 0.25), rtol=1e-13, atol=0)
 
 

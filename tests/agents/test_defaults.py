@@ -10,9 +10,9 @@ import pytest
 import torch
 import yaml
 
-from agents.sac import SoftActorCritic
-from agents.settings import AgentSettings, resolve_target_entropy
-from agents.presets import CONFIG_DIR
+from kiln.config.agent_settings import AgentSettings, resolve_target_entropy
+from kiln.config.presets import CONFIG_DIR
+from kiln.learner.sac import SoftActorCritic
 
 # Dotted key (as in configs/agent/published.yaml) → Table 1's value.
 TABLE_1 = {

@@ -8,10 +8,10 @@ import gymnasium as gym
 import numpy as np
 import pytest
 
-from agents.checkpoint import CheckpointStore
-from agents.errors import DivergenceError
-from agents.presets import compose_config
-from agents.trainer import train
+from kiln.config.presets import compose_config
+from kiln.errors import DivergenceError
+from kiln.training.checkpoint import CheckpointStore
+from kiln.training.trainer import train
 
 SMALL = (
     "collect.warmup_steps=50", "agent.layer_widths=[16,16]", "agent.batch_size=16", "evaluate.every=100",
@@ -57,8 +57,9 @@ def test_non_finite_reward_from_a_task_kwarg_stops_at_that_step(tmp_path, bad):
     assert store.latest().name == "step-000000000200"  # the last one before the fault
     assert "step-000000000200" in message
     # The kept checkpoint loads completely (same config, so it is accepted).
-    from agents.replay import ReplayBuffer
     import torch
+
+    from kiln.training.replay import ReplayBuffer
 
     replay = ReplayBuffer(config["agent"]["replay_capacity"], 1, 1, torch.Generator())
     tensors, record = store.load(store.latest(), replay, config)

@@ -1,5 +1,5 @@
 """Exported ONNX controllers against outside references: onnxruntime running the file vs Kiln's actor,
-and a NumPy forward pass written only from spec.json's documented layout (tests/agents/spec_reference.py).
+and a NumPy forward pass written only from spec.json's documented layout (tests/support/spec_reference.py).
 
 Tolerances are the project's requirement for float32 inference (no outside source): 1e-5 between
 onnxruntime and Kiln, 1e-6 between Kiln's network outputs and the float64 NumPy reference, max over
@@ -15,16 +15,16 @@ import pytest
 import torch
 from safetensors.numpy import load_file
 
-from agents.export import (
+from kiln.onnx_export import (
     CAUTION,
     DEFAULT_OPSET,
     SUPPORTED_OPSETS,
     ExportError,
     export_policy,
 )
-from agents.export.parity import kiln_actions, sample_observations
-from agents.policy_io import load_policy
-from tests.agents.export_fixtures import (
+from kiln.onnx_export.parity import kiln_actions, sample_observations
+from kiln.storage.policy_io import load_policy
+from tests.support.export_fixtures import (
     ACT_HIGH,
     ACT_LOW,
     OBS_HIGH,
@@ -32,7 +32,7 @@ from tests.agents.export_fixtures import (
     onnx_actions,
     save_test_policy,
 )
-from tests.agents.spec_reference import reference_actions, reference_heads
+from tests.support.spec_reference import reference_actions, reference_heads
 
 COUNT = 10_000
 

@@ -1,6 +1,6 @@
 """A seeded episode driven by the exported file reproduces Kiln's evaluation of the same policy.
 
-Kiln's side is agents.policy_eval (through agents.rollout); the exported side is a plain Gymnasium
+Kiln's side is kiln.evaluation.policy_eval (through kiln.evaluation.rollout); the exported side is a plain Gymnasium
 loop feeding onnxruntime. Tolerance: 1e-4 relative on the return (project requirement, no outside
 source); float32 action round-off of ~1e-6 is what separates the two.
 """
@@ -12,13 +12,13 @@ import numpy as np
 import pytest
 import torch
 
-from agents.export import export_policy
-from agents.policy_eval import evaluate_policy, plan_evaluation
-from agents.policy_io import load_policy
-from agents.presets import compose_config
-from agents.trainer import train
-from tests.agents.export_fixtures import onnx_session
-from tests.scripts.cli import TINY_RUN
+from kiln.config.presets import compose_config
+from kiln.evaluation.policy_eval import evaluate_policy, plan_evaluation
+from kiln.onnx_export import export_policy
+from kiln.storage.policy_io import load_policy
+from kiln.training.trainer import train
+from tests.support.cli import TINY_RUN
+from tests.support.export_fixtures import onnx_session
 
 SEED = 11
 

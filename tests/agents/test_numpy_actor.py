@@ -1,6 +1,6 @@
 """Training actions computed in NumPy equal torch's policy samples (torch is the reference).
 
-Reference: :meth:`agents.actor.SquashedGaussianActor.sample` (torch's own softplus, tanh and
+Reference: :meth:`kiln.learner.actor.SquashedGaussianActor.sample` (torch's own softplus, tanh and
 nonlinearities); the NumPy path must give the same actions to float32 rounding and leave every
 agent's generator in the same state, for each nonlinearity Kiln offers.
 """
@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 import torch
 
-from agents import numpy_actor
-from agents.actor import SquashedGaussianActor
-from agents.nets import NONLINEARITIES
+from kiln.config.nonlinearities import NONLINEARITIES
+from kiln.learner import numpy_actor
+from kiln.learner.actor import SquashedGaussianActor
 
 
 # (population, action size): NumPy throughout, and small heads squashed in Python floats.
@@ -66,9 +66,9 @@ def test_numpy_actions_follow_weights_changed_in_place_and_replaced():
 @pytest.mark.parametrize("targets", [(-2.0,), (-1.0, -0.5)])  # one temperature, and one per action dimension
 def test_action_and_entropy_term_equal_torch_sample_and_bonus(targets):
     """SoftActorCritic.sample_with_log_prob (NumPy) and entropy_terms against torch: the actor's reparameterised sample, its
-    per-dimension log-density from agents.squashed_gaussian, and Temperature.bonus (α·log π)."""
-    from agents.sac import MemberSetup, SoftActorCritic
-    from agents.settings import AgentSettings
+    per-dimension log-density from kiln.learner.squashed_gaussian, and Temperature.bonus (α·log π)."""
+    from kiln.config.agent_settings import AgentSettings
+    from kiln.learner.sac import MemberSetup, SoftActorCritic
 
     agent = SoftActorCritic(3, 2, AgentSettings(layer_widths=(16, 16)), [MemberSetup(targets, torch.Generator().manual_seed(0), 0.3)])
     with torch.no_grad():  # a second temperature unlike the first, and log-stds past both soft limits

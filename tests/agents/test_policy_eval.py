@@ -5,9 +5,9 @@ import numpy as np
 import pytest
 import torch
 
-from agents.actor import SquashedGaussianActor
-from agents.policy_eval import evaluate_policy, plan_evaluation
-from agents.policy_io import build_spec, load_policy, save_policy
+from kiln.evaluation.policy_eval import evaluate_policy, plan_evaluation
+from kiln.learner.actor import SquashedGaussianActor
+from kiln.storage.policy_io import build_spec, load_policy, save_policy
 
 
 def test_record_lists_episodes_with_return_and_counts_them_in_the_summary(tmp_path):
@@ -31,8 +31,8 @@ def test_record_lists_episodes_with_return_and_counts_them_in_the_summary(tmp_pa
 
 def test_without_a_seed_the_training_runs_own_evaluation_episodes_are_planned(tmp_path):
     # A policy saved by a run records the run's seed and evaluation count in its config: evaluation
-    # then uses the run's streams (agents.streams), so it repeats the run's own final evaluation.
-    from agents.streams import RunStreams
+    # then uses the run's streams (kiln.config.streams), so it repeats the run's own final evaluation.
+    from kiln.config.streams import RunStreams
 
     actor = SquashedGaussianActor(3, 1, (8, 8), "relu", (-20.0, 2.0), torch.Generator().manual_seed(0))
     obs_space = gym.spaces.Box(-np.inf, np.inf, (3,), np.float32)

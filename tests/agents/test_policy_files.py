@@ -15,11 +15,11 @@ import pytest
 import torch
 from safetensors.torch import save_file
 
-from agents import policy_io
-from agents.actor import SquashedGaussianActor
-from agents.errors import PolicyFolderError
-from agents.policy_io import SPEC, WEIGHTS, actor_tensors, build_spec, load_policy, save_policy
-from tests.pickle_bomb import pickle_bomb, torch_bomb
+from kiln.errors import PolicyFolderError
+from kiln.learner.actor import SquashedGaussianActor
+from kiln.storage import policy_io
+from kiln.storage.policy_io import SPEC, WEIGHTS, actor_tensors, build_spec, load_policy, save_policy
+from tests.support.pickle_bomb import pickle_bomb, torch_bomb
 
 ENV = {"id": "Pendulum-v1", "kwargs": {}, "max_episode_steps": None}
 

@@ -8,9 +8,9 @@ import pytest
 import torch
 from safetensors import safe_open
 
-from agents.actor import SquashedGaussianActor
-from agents.errors import PolicyFolderError
-from agents.policy_io import SPEC, WEIGHTS, build_spec, load_policy, save_policy
+from kiln.errors import PolicyFolderError
+from kiln.learner.actor import SquashedGaussianActor
+from kiln.storage.policy_io import SPEC, WEIGHTS, build_spec, load_policy, save_policy
 
 
 def _saved(tmp_path):

@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 import torch
 
-from agents.actor import SquashedGaussianActor
-from agents.policy_io import build_spec, load_policy, save_policy
+from kiln.learner.actor import SquashedGaussianActor
+from kiln.storage.policy_io import build_spec, load_policy, save_policy
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -48,7 +48,7 @@ def test_policy_follows_the_umask(tmp_path: Path, umask: int, folder_mode: int, 
 
 _KILLED_SAVE = """
 import os, sys
-from agents import policy_io
+from kiln.storage import policy_io
 from tests.agents.test_policy_save import _save
 # Die the way a killed process does (no cleanup) after the weights are written, before the spec.
 policy_io.write_text_atomic = lambda *args: os._exit(9)

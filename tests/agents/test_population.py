@@ -13,14 +13,14 @@ import pytest
 import torch
 from safetensors.torch import load_file
 
-from agents.errors import ConfigError, DivergenceError, RunStopped
-from agents.population import check_population, population_key, train_population
-from agents.presets import compose_config
-from agents.replay import PopulationReplay, ReplayBuffer
-from agents.sac import MemberSetup, SoftActorCritic
-from agents.settings import AgentSettings
-from agents.stop import StopRequest
-from agents.trainer import train
+from kiln.config.agent_settings import AgentSettings
+from kiln.config.presets import compose_config
+from kiln.errors import ConfigError, DivergenceError, RunStopped
+from kiln.learner.sac import MemberSetup, SoftActorCritic
+from kiln.training.population import check_population, population_key, train_population
+from kiln.training.replay import PopulationReplay, ReplayBuffer
+from kiln.training.stop import StopRequest
+from kiln.training.trainer import train
 
 SMALL = (
     "env=pendulum", "steps=300", "collect.warmup_steps=100", "agent.layer_widths=[16,16]", "agent.batch_size=32",

@@ -5,7 +5,7 @@ and line mode repeated the same training return and speeds at every evaluation. 
 no outside source.
 """
 
-from agents.progress import Progress
+from kiln.training.progress import Progress
 
 
 def _lines(capsys):

@@ -1,7 +1,7 @@
 """Replay storage and the time-limit rule: truncation keeps bootstrapping, termination stops it.
 
-Source for the rule: Gymnasium's step API (terminated vs truncated), and DESIGN.md's note that
-Pendulum-v1 never terminates, only truncates at 200 steps (Gymnasium's registered max_episode_steps).
+Source for the rule: Gymnasium's step API (terminated vs truncated), and Gymnasium's Pendulum-v1,
+which never terminates and only truncates at 200 steps (its registered max_episode_steps).
 """
 
 import gymnasium as gym
@@ -10,9 +10,9 @@ import pytest
 import torch
 from scipy import stats
 
-from agents.action_scale import ActionScale
-from agents.collector import Collector
-from agents.replay import ReplayBuffer
+from kiln.learner.action_scale import ActionScale
+from kiln.training.collector import Collector
+from kiln.training.replay import ReplayBuffer
 
 
 class _Counter(gym.Env):
@@ -109,7 +109,7 @@ class _Emits(gym.Env):
     ],
 )
 def test_a_non_finite_transition_stops_naming_the_field(obs, reward, quantity):
-    from agents.errors import DivergenceError
+    from kiln.errors import DivergenceError
 
     env = _Emits(obs, reward)
     replay = ReplayBuffer(10, 1, 1, torch.Generator().manual_seed(0))

@@ -24,7 +24,7 @@ CONFIG = (
     "evaluate.every=200", "evaluate.episodes=1", "evaluate.bias_episodes=1",
     "log.every=100", "log.progress=off", "checkpoint.every=100", "checkpoint.keep=2",
 )  # fmt: skip
-# (point, n): the n-th call of the patched function kills the process (see tests/agents/kill_driver.py).
+# (point, n): the n-th call of the patched function kills the process (see tests/support/kill_driver.py).
 KILLS = {
     "warm-up": ("warmup", 120),              # env step 120, after the step-100 checkpoint
     "mid-update": ("update", 130),           # inside the update of env step 280
@@ -36,7 +36,7 @@ KILLS = {
 
 def _drive(run_dir: Path, point: str, n: int) -> subprocess.CompletedProcess:
     return subprocess.run(
-        [sys.executable, "-m", "tests.agents.kill_driver", str(run_dir), point, str(n), *CONFIG],
+        [sys.executable, "-m", "tests.support.kill_driver", str(run_dir), point, str(n), *CONFIG],
         cwd=REPO, capture_output=True, text=True, timeout=600,
     )  # fmt: skip
 

@@ -10,8 +10,10 @@ import pytest
 import scipy.stats
 import torch
 
-from agents.action_scale import ActionScale
-from agents.rollout import (
+from kiln.envs.lqr import LinearQuadraticModel
+from kiln.envs.lqr_solution import soft_lq_solution
+from kiln.envs.task_spec import TaskSpec
+from kiln.evaluation.rollout import (
     EpisodeSummary,
     q_minus_return,
     rollout,
@@ -20,9 +22,7 @@ from agents.rollout import (
     soft_returns,
     summarise,
 )
-from envs.lqr import LinearQuadraticModel
-from envs.lqr_solution import soft_lq_solution
-from envs.task_spec import TaskSpec
+from kiln.learner.action_scale import ActionScale
 
 
 class _UnitReward(gym.Env):

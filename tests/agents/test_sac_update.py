@@ -5,9 +5,8 @@ import math
 import pytest
 import torch
 
-from agents.replay import Batch
-from agents.sac import MemberSetup, SoftActorCritic
-from agents.settings import AgentSettings, TemperatureSettings, resolve_target_entropy
+from kiln.config.agent_settings import AgentSettings, TemperatureSettings, resolve_target_entropy
+from kiln.learner.sac import Batch, MemberSetup, SoftActorCritic
 
 
 def _agent(**temperature) -> SoftActorCritic:
@@ -127,7 +126,7 @@ def test_fixed_and_tuned_members_side_by_side():
 
 
 def test_per_dimension_targets_give_one_alpha_per_dimension():
-    # With a per-dimension target list each dimension gets its own α (DESIGN.md config keys).
+    # With a per-dimension target list each dimension gets its own α (README, "Training": a list gives one target per action dimension).
     settings = AgentSettings(layer_widths=(8,), temperature=TemperatureSettings(target_entropy=[-1.0, 0.5]))
     agent = SoftActorCritic.single(2, 2, settings, (-1.0, 0.5), torch.Generator().manual_seed(0))
     assert agent.temperature.alpha().shape == (1, 2)

@@ -6,7 +6,7 @@ Project requirement (no outside source); signal numbers and exit codes follow PO
 import os
 import signal
 
-from agents.stop import StopRequest
+from kiln.training.stop import StopRequest
 
 
 def test_sigterm_sets_the_request_and_is_passed_on_to_the_earlier_handler():

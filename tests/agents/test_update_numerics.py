@@ -14,9 +14,8 @@ import torch
 import torch.nn.functional as F
 from torch.distributions import Normal
 
-from agents.replay import Batch
-from agents.sac import MemberSetup, SoftActorCritic
-from agents.settings import AgentSettings, TemperatureSettings
+from kiln.config.agent_settings import AgentSettings, TemperatureSettings
+from kiln.learner.sac import Batch, MemberSetup, SoftActorCritic
 
 OBS, ACT, BATCH, WIDTHS = 4, 2, 128, (32, 32)
 LOW, HIGH = -20.0, 2.0  # agent.actor.log_std_soft_limits defaults
@@ -39,7 +38,7 @@ def _layers(state, prefix, row):
 def _policy(obs, actor, noise):
     out = _mlp(obs, actor)
     mean, raw = out[:, :ACT], out[:, ACT:]
-    log_std = LOW + F.softplus(HIGH - F.softplus(HIGH - raw) - LOW)  # the soft limits (agents.actor.soft_clamp)
+    log_std = LOW + F.softplus(HIGH - F.softplus(HIGH - raw) - LOW)  # the soft limits (kiln.learner.actor.soft_clamp)
     u = mean + log_std.exp() * noise
     # log π(a) = log N(u; μ, σ) − Σ log(1 − tanh²u)  (Appendix C, Eq. 21), per dimension
     log_prob = Normal(mean, log_std.exp()).log_prob(u) - torch.log(1 - torch.tanh(u) ** 2)

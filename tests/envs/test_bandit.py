@@ -11,14 +11,14 @@ import scipy.integrate
 from gymnasium.utils.env_checker import check_env
 from scipy import stats
 
-import envs  # noqa: F401  (registers the kiln/ ids)
-from envs.errors import TaskError
-from envs.bandit_solution import (
+import kiln.envs  # noqa: F401  (registers the kiln/ ids)
+from kiln.envs.bandit_solution import (
     bandit_alpha_for_entropy,
     bandit_soft_optimum,
     bandit_squashed_gaussian_optimum,
     squashed_gaussian_statistics,
 )
+from kiln.envs.task_error import TaskError
 
 STIFFNESS, TARGET = 4.0, 0.5
 
@@ -55,7 +55,7 @@ def squashed_density_terms(mu: float, sigma: float, function) -> float:
 def test_wide_bounds_reproduce_the_unbounded_gaussian_optimum() -> None:
     k, a0, alpha = 2.0, 0.4, 0.3
     optimum = bandit_soft_optimum(k, a0, alpha, low=-50.0, high=50.0)
-    # Source: standard Gaussian integral (and DESIGN.md): exp(-(k/2)(a - a0)^2 / alpha) is N(a0, alpha / k),
+    # Source: standard Gaussian integral (completing the square): exp(-(k/2)(a - a0)^2 / alpha) is N(a0, alpha / k),
     # with integral sqrt(2 pi alpha / k), so V = (alpha / 2) log(2 pi alpha / k),
     # H = 1/2 log(2 pi e alpha / k), E[r] = -(k / 2)(alpha / k) = -alpha / 2.
     assert optimum.mean == pytest.approx(a0, abs=1e-10)
@@ -109,7 +109,8 @@ def test_squashed_gaussian_statistics_match_adaptive_quadrature(mu: float, sigma
 
 
 def test_squashed_standard_normal_entropy() -> None:
-    # Source: DESIGN.md, "N(0,1) squashed ~ 0.6698 nats" (computed there by SciPy quadrature).
+    # N(0,1) squashed has entropy ≈ 0.6698 nats (SciPy quadrature; the value is from memory, and
+    # kiln.exact.solver_checks recomputes it against torch.distributions).
     assert squashed_gaussian_statistics(0.0, 1.0, STIFFNESS, TARGET)[1] == pytest.approx(0.6698, abs=5e-5)
 
 

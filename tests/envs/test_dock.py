@@ -10,8 +10,8 @@ import pytest
 from gymnasium.utils.env_checker import check_env
 from gymnasium.vector import AutoresetMode
 
-import envs  # noqa: F401  (registers the kiln/ ids)
-from envs.errors import TaskError
+import kiln.envs  # noqa: F401  (registers the kiln/ ids)
+from kiln.envs.task_error import TaskError
 
 # Defaults used in the hand arithmetic below: dt 0.1, push_gain 1, friction 0.2, rail [0, 2], dock at
 # 1.5 +- 0.05 at speed <= 0.2, step_cost 0.1, effort_cost 0.01, dock_bonus 10.

@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from envs.gridworld import BOOK_V_STAR, book_gridworld
+from kiln.envs.gridworld import BOOK_V_STAR, book_gridworld
 
 NORTH, SOUTH, EAST, WEST = range(4)
 

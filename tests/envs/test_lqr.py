@@ -11,10 +11,10 @@ import pytest
 import scipy.integrate
 from gymnasium.utils.env_checker import check_env
 
-import envs  # noqa: F401  (registers the kiln/ ids)
-from envs.errors import TaskError
-from envs.lqr import LinearQuadraticModel
-from envs.lqr_solution import linear_gaussian_soft_value, soft_lq_solution
+import kiln.envs  # noqa: F401  (registers the kiln/ ids)
+from kiln.envs.lqr import LinearQuadraticModel
+from kiln.envs.lqr_solution import linear_gaussian_soft_value, soft_lq_solution
+from kiln.envs.task_error import TaskError
 
 ALPHA = 0.1
 DISCOUNT = 0.9  # gamma^200 = 7e-10: the 200-step time limit is as good as an infinite horizon here
@@ -76,7 +76,7 @@ def soft_returns(
 def test_riccati_solution_matches_fixed_point_iteration() -> None:
     model = LinearQuadraticModel()
     solution = soft_lq_solution(model, ALPHA, DISCOUNT)
-    # Source: the discounted Riccati recursion (DESIGN.md) iterated to its fixed point.
+    # Source: the discounted Riccati recursion (Bertsekas, Dynamic Programming and Optimal Control, Vol. I, Section 4.1, with the discount folded in as √γ A, √γ B) iterated to its fixed point.
     np.testing.assert_allclose(solution.riccati, riccati_by_fixed_point(model, DISCOUNT), rtol=1e-10)
 
 
@@ -91,7 +91,7 @@ def test_scalar_riccati_matches_quadratic_formula() -> None:
     expected = (-linear + math.sqrt(linear**2 + 4 * g * b**2 * q * r)) / (2 * g * b**2)
     solution = soft_lq_solution(model, alpha=0.5, discount=g)
     assert solution.riccati[0, 0] == pytest.approx(expected, rel=1e-12)
-    # K = g b P a / (r + g b^2 P) and Sigma = (alpha / 2) / (r + g b^2 P), from DESIGN.md's formulas.
+    # K = g b P a / (r + g b^2 P) and Sigma = (alpha / 2) / (r + g b^2 P), derived in envs/lqr_solution.py's docstring.
     assert solution.gain[0, 0] == pytest.approx(g * b * expected * a / (r + g * b**2 * expected), rel=1e-12)
     assert solution.covariance[0, 0] == pytest.approx(0.25 / (r + g * b**2 * expected), rel=1e-12)
 
@@ -138,7 +138,7 @@ def test_policy_evaluation_at_the_optimum_reproduces_the_closed_form() -> None:
     value_matrix, constant = linear_gaussian_soft_value(
         model, solution.gain, solution.covariance, ALPHA, DISCOUNT
     )
-    # Two independent formulas (Lyapunov evaluation with the e of the Gaussian entropy, and DESIGN.md's
+    # Two independent formulas (Lyapunov evaluation with the e of the Gaussian entropy, and the closed form's
     # constant without it) must agree at the optimal policy: tr(M Sigma) = alpha m / 2 absorbs the e.
     np.testing.assert_allclose(value_matrix, solution.riccati, rtol=1e-10)
     assert constant == pytest.approx(solution.constant, rel=1e-10)
@@ -153,7 +153,7 @@ def test_closed_form_matches_monte_carlo_rollouts() -> None:
     # E[G | x_0] = V*(x_0), so G - V*(x_0) has mean 0; subtracting V*(x_0) removes start-state variance.
     residual = returns - solution.value(starts)
     standard_error = residual.std(ddof=1) / math.sqrt(residual.size)
-    # Source: the closed form (DESIGN.md, derived in envs/lqr_solution.py) vs Monte Carlo; 4 standard
+    # Source: the closed form (derived in envs/lqr_solution.py) vs Monte Carlo; 4 standard
     # errors (a false alarm about once in 16,000 runs; fixed seed here).
     assert abs(residual.mean()) < 4 * standard_error
     # The same estimate against the start-distribution average -tr(P S0) - c.

@@ -7,9 +7,9 @@ import gymnasium as gym
 import numpy as np
 import pytest
 
-from envs.errors import TaskError
-from envs.make import make_env, make_vector_env
-from envs.task_spec import TaskSpec
+from kiln.envs.make import make_env, make_vector_env
+from kiln.envs.task_error import TaskError
+from kiln.envs.task_spec import TaskSpec
 
 
 class _DictObs(gym.Env):
@@ -27,7 +27,7 @@ gym.register("KilnTest/Unbounded-v0", entry_point=_Unbounded)
 
 
 def test_registered_time_limit_is_kept():
-    # Gymnasium registers Pendulum-v1 with max_episode_steps = 200 (DESIGN.md, Gymnasium registry).
+    # Gymnasium registers Pendulum-v1 with max_episode_steps = 200 (gymnasium/envs/__init__.py).
     env = make_env(TaskSpec("Pendulum-v1"))
     assert env.spec.max_episode_steps == 200
 
@@ -188,8 +188,8 @@ from dataclasses import dataclass
 import numpy as np
 from gymnasium import spaces
 
-from envs.task_base import BatchedDynamics
-from envs.task_entry import register_task
+from kiln.envs.task_base import BatchedDynamics
+from kiln.envs.task_entry import register_task
 
 
 @dataclass(frozen=True)

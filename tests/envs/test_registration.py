@@ -8,10 +8,10 @@ import gymnasium as gym
 import numpy as np
 import pytest
 
-import envs  # noqa: F401  (registers the kiln/ ids)
-from envs.errors import TaskError
-from envs.registration import KILN_TASKS, register_kiln_tasks
-from envs.task_entry import BatchEntry, SingleCopyEntry
+import kiln.envs  # noqa: F401  (registers the kiln/ ids)
+from kiln.envs.registration import KILN_TASKS, register_kiln_tasks
+from kiln.envs.task_entry import BatchEntry, SingleCopyEntry
+from kiln.envs.task_error import TaskError
 
 # Deterministic settings (no noise, fixed start) so two vectorisations must agree exactly.
 DETERMINISTIC = {

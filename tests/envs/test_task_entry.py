@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from gymnasium import spaces
 
-from envs.errors import TaskError
-from envs.task_base import BatchedDynamics
-from envs.task_entry import register_task
+from kiln.envs.task_base import BatchedDynamics
+from kiln.envs.task_entry import register_task
+from kiln.envs.task_error import TaskError
 
 
 @dataclass(frozen=True)

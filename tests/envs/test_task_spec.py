@@ -4,14 +4,14 @@ import json
 
 import pytest
 
-from envs.errors import TaskError
-from envs.task_spec import TaskSpec
+from kiln.envs.task_error import TaskError
+from kiln.envs.task_spec import TaskSpec
 
 
 def test_record_round_trips_through_json():
     spec = TaskSpec("kiln/FiringHold-v0", {"state_cost": [[1.0, 0.0], [0.0, 0.5]], "start_std": 0.5}, 80)
     record = json.loads(json.dumps(spec.to_record()))
-    # The saved policy's spec.json holds exactly these three keys under "env" (DESIGN.md, saved policy).
+    # The saved policy's spec.json holds exactly these three keys under "env" (README, "Evaluation": spec.json records the task).
     assert record == {
         "id": "kiln/FiringHold-v0",
         "kwargs": {"state_cost": [[1.0, 0.0], [0.0, 0.5]], "start_std": 0.5},

@@ -5,7 +5,7 @@ import json
 
 import pytest
 
-from tests.scripts.cli import TINY_RUN, assert_one_line_error, run_script
+from tests.support.cli import TINY_RUN, assert_one_line_error, run_script
 
 
 @pytest.mark.parametrize(
@@ -27,7 +27,7 @@ from tests.scripts.cli import TINY_RUN, assert_one_line_error, run_script
         ("agent.temperature.target_entropy=[1,2,3]", ["3 entries", "1 dimensions"]),
         ("agent.temperature.mode=sometimes", ["agent.temperature.mode must be one of tuned | fixed"]),
         ("seed=1000003", ["seed must be from 0 to 1000002"]),
-        # Renamed keys and values: one line naming the new name (DESIGN.md "Names").
+        # Renamed keys and values: one line naming the new name (README, "Training": keys from an earlier Kiln are refused with the key to use).
         ("agent.hidden_sizes=[8,8]", ["agent.hidden_sizes is an old name", "agent.layer_widths"]),
         ("agent.activation=tanh", ["agent.nonlinearity"]),
         ("agent.critic_lr=1e-3", ["agent.critic_lr is an old name", "agent.critic.lr"]),

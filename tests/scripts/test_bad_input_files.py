@@ -12,11 +12,11 @@ import numpy as np
 import pytest
 import torch
 
-from agents.actor import SquashedGaussianActor
-from agents.policy_io import SPEC, WEIGHTS, build_spec, save_policy
-from tests.pickle_bomb import pickle_bomb
-from tests.scripts.cli import REPO, assert_one_line_error, run_script
-from tests.scripts.restricted import NO_BYTECODE, restricted, tree
+from kiln.learner.actor import SquashedGaussianActor
+from kiln.storage.policy_io import SPEC, WEIGHTS, build_spec, save_policy
+from tests.support.cli import REPO, assert_one_line_error, run_script
+from tests.support.pickle_bomb import pickle_bomb
+from tests.support.restricted import NO_BYTECODE, restricted, tree
 
 # The scripts import this worktree's packages, not another checkout's installed ones.
 ENV = {"PYTHONPATH": str(REPO), **NO_BYTECODE}
@@ -207,7 +207,7 @@ def test_verify_out_past_the_file_size_limit_is_one_line_exit_2_and_keeps_the_ea
 
 def _sweep(root: Path, unfinished: int = 1) -> Path:
     """Two finished runs per group and ``unfinished`` runs without result.json (invented numbers)."""
-    from tests.agents.compare_fixtures import run_config, training_scalars, write_run
+    from tests.support.compare_fixtures import run_config, training_scalars, write_run
 
     sweep = root / "sweep"
     for seed, target in enumerate([-3.0, -3.0, -1.0, -1.0]):
@@ -247,7 +247,7 @@ def test_compare_includes_unfinished_runs_marked_on_request(tmp_path: Path) -> N
 
 
 def test_compare_of_only_unfinished_runs_says_how_to_include_them(tmp_path: Path) -> None:
-    from tests.agents.compare_fixtures import run_config, training_scalars, write_run
+    from tests.support.compare_fixtures import run_config, training_scalars, write_run
 
     run = write_run(tmp_path / "run", run_config(0, -1.0), training_scalars(-1.0, -1.0, 0.1, -1.0), finished=False)
     before = tree(tmp_path)

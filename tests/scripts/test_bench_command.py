@@ -7,12 +7,12 @@ from pathlib import Path
 
 import pytest
 
-from agents.bench.loop_split import LoopSplit
-from agents.bench.sweep_wall import population_launcher_exists, sweep_command
-from agents.trainer import check_run
-from kiln_cli._cli import check_overrides
-from kiln_cli.bench import parse_parts, speed_ratio
-from tests.scripts.cli import assert_one_line_error, run_kiln, run_script
+from kiln.benchmark.loop_split import LoopSplit
+from kiln.benchmark.sweep_wall import population_launcher_exists, sweep_command
+from kiln.cli.bench import parse_parts, speed_ratio
+from kiln.cli.common import check_overrides
+from kiln.training.trainer import check_run
+from tests.support.cli import assert_one_line_error, run_kiln, run_script
 
 # The keys the issue asks the JSON line to carry, with the sub-keys of those that are objects.
 REQUIRED = {
@@ -82,7 +82,7 @@ def test_sweep_command_passes_kilns_own_override_checks() -> None:
     # The benchmark launches the sweep as a user would: every variant of its command line must compose.
     for population in (False, True) if population_launcher_exists() else (False,):
         args = sweep_command(Path("/tmp/kiln-bench-check"), 1200, population)
-        assert args[1:3] == ["-m", "kiln_cli.train"]
+        assert args[1:3] == ["-m", "kiln.cli.train"]
         check_overrides("train", args[3:], check_run)  # exits 2 with one line on a bad override
 
 

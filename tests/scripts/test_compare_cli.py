@@ -9,12 +9,11 @@ from pathlib import Path
 
 import pytest
 
-from agents.compare.errors import CompareInputError
-from agents.errors import KilnError
-from agents.presets import compose_node
-from kiln_cli import compare
-from tests.agents.compare_fixtures import run_config, training_scalars, write_run
-from tests.scripts.cli import assert_one_line_error, run_kiln
+from kiln.cli import compare
+from kiln.config.presets import compose_node
+from kiln.errors import CompareInputError, KilnError
+from tests.support.cli import assert_one_line_error, run_kiln
+from tests.support.compare_fixtures import run_config, training_scalars, write_run
 
 
 def _sweep(root: Path) -> Path:

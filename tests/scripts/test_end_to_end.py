@@ -5,9 +5,9 @@ import json
 import pytest
 from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
 
-from tests.scripts.cli import TINY_RUN, run_script
+from tests.support.cli import TINY_RUN, run_script
 
-# Kiln's tag scheme (DESIGN.md, "TensorBoard tags").
+# Kiln's tag scheme (README, "TensorBoard").
 EXPECTED_TAGS = {
     "return/train", "return/eval", "return/eval_std", "length/train",
     "critic/td_mse", "critic/q_mean", "critic/q_spread", "critic/target_mean",

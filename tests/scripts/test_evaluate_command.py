@@ -5,10 +5,10 @@ from pathlib import Path
 
 import pytest
 
-from kiln_cli._cli import plural
-from agents.policy_eval import EvaluationPlan
-from kiln_cli.evaluate import episodes_line
-from tests.scripts.cli import run_script
+from kiln.cli.common import plural
+from kiln.cli.evaluate import episodes_line
+from kiln.evaluation.policy_eval import EvaluationPlan
+from tests.support.cli import run_script
 
 
 def test_help_lists_only_the_keys_evaluate_accepts(tmp_path: Path) -> None:

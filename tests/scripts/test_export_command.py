@@ -7,9 +7,9 @@ from pathlib import Path
 import onnx
 import pytest
 
-from agents.export import CAUTION
-from tests.agents.export_fixtures import save_test_policy
-from tests.scripts.cli import assert_one_line_error, run_kiln
+from kiln.onnx_export import CAUTION
+from tests.support.cli import assert_one_line_error, run_kiln
+from tests.support.export_fixtures import save_test_policy
 
 
 @pytest.fixture

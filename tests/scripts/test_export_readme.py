@@ -12,10 +12,10 @@ import gymnasium as gym
 import pytest
 import torch
 
-from agents.actor import SquashedGaussianActor
-from agents.export import export_policy
-from agents.policy_eval import evaluate_policy, plan_evaluation
-from agents.policy_io import build_spec, load_policy, save_policy
+from kiln.evaluation.policy_eval import evaluate_policy, plan_evaluation
+from kiln.learner.actor import SquashedGaussianActor
+from kiln.onnx_export import export_policy
+from kiln.storage.policy_io import build_spec, load_policy, save_policy
 
 README = Path(__file__).resolve().parents[2] / "README.md"
 # Packages that would make Kiln importable; the example must not need any of them.

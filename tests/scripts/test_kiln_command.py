@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.scripts.cli import assert_one_line_error, run_kiln, run_script
+from tests.support.cli import assert_one_line_error, run_kiln, run_script
 
 # A user's own task, written as a user would: a point mass on a line pushed by a bounded force,
 # registered with Gymnasium under a plain id in the user's own module (nothing of Kiln's).

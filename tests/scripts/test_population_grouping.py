@@ -7,7 +7,7 @@ points with different keys never share one. Every expected split below is worked
 
 import pytest
 
-from hydra_plugins.kiln_population_launcher.grouping import even_chunks, split_points
+from kiln.launchers.population_groups import even_chunks, split_points
 
 
 def test_even_chunks_differ_by_at_most_one_larger_first():

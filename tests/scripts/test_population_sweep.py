@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 from scipy.stats import trim_mean
 
-from tests.scripts.cli import assert_one_line_error, run_kiln, run_script
+from tests.support.cli import assert_one_line_error, run_kiln, run_script
 
 # A sweep preset of the test's own (a user preset folder, as `kiln --presets` reads): tiny runs, so
 # that the command line holds only what a test varies. The launcher choice is left out of the folder

@@ -18,10 +18,10 @@ from pathlib import Path
 import pytest
 from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
 
-from agents.run_folder import RunFolder
-from tests.pickle_bomb import pickle_bomb, torch_bomb
-from tests.scripts.cli import REPO, TINY_RUN, assert_one_line_error, run_script
-from tests.scripts.restricted import NO_BYTECODE, restricted
+from kiln.storage.run_folder import RunFolder
+from tests.support.cli import REPO, TINY_RUN, assert_one_line_error, run_script
+from tests.support.pickle_bomb import pickle_bomb, torch_bomb
+from tests.support.restricted import NO_BYTECODE, restricted
 
 LONG_RUN = (*TINY_RUN[:-1], "steps=20000", "agent.replay_capacity=20000", "evaluate.every=1000",
             "log.every=100", "checkpoint.every=500", "log.progress=off")  # fmt: skip

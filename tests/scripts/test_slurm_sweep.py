@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.scripts.cli import TINY_RUN, assert_one_line_error, run_script
+from tests.support.cli import TINY_RUN, assert_one_line_error, run_script
 
 TARGETS = ("-1.0", "-3.0")
 SLURM_ARGS = ("sweep=target_entropy", "launcher=slurm", "hydra.launcher.mem_gb=1", "hydra.launcher.timeout_min=10")

@@ -6,7 +6,7 @@ import json
 import pytest
 from scipy.stats import trim_mean
 
-from tests.scripts.cli import TINY_RUN, run_script
+from tests.support.cli import TINY_RUN, run_script
 
 TARGETS = ("-1.0", "-3.0")
 

@@ -4,8 +4,8 @@ import json
 
 import pytest
 
-from agents.exact.check_row import CheckRow
-from tests.scripts.cli import run_script
+from kiln.exact.check_row import CheckRow
+from tests.support.cli import run_script
 
 
 def test_quick_prints_the_table_and_exits_0(tmp_path):
@@ -45,13 +45,13 @@ def test_bad_argument_is_one_line_exit_2(tmp_path, args, phrase):
 
 
 def test_a_failed_check_exits_1(monkeypatch, capsys):
-    import agents.exact.verify
-    from kiln_cli import verify as command
+    import kiln.exact.verify_table
+    from kiln.cli import verify as command
 
     def failing() -> CheckRow:
         return CheckRow("off", "always off", "none", 1.0, 2.0, 1.0, 0.05, "rel")
 
-    monkeypatch.setattr(agents.exact.verify, "SOLVER_CHECKS", (*agents.exact.verify.SOLVER_CHECKS, failing))
+    monkeypatch.setattr(kiln.exact.verify_table, "SOLVER_CHECKS", (*kiln.exact.verify_table.SOLVER_CHECKS, failing))
     assert command.main(["--quick"]) == 1
     out = capsys.readouterr().out
     assert "FAIL" in out and "4 of 5 checks passed" in out

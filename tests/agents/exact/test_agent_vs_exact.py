@@ -1,15 +1,15 @@
 """The trained agent against Kiln's exact answers (slow: real training through the library; run in CI).
 
-Each test trains one run with agents.trainer.train from a config composed from the presets
+Each test trains one run with kiln.training.trainer.train from a config composed from the presets
 (configs/env/damper_trim.yaml, configs/env/firing_hold.yaml) and measures it with
-agents.exact.agent_vs_exact, the same rows scripts/verify.py prints, so test and command cannot drift.
+kiln.exact.agent_vs_exact, the same rows scripts/verify.py prints, so test and command cannot drift.
 One torch thread per run. Tolerances are issue 3's (the project's requirement, no outside source);
 the measured errors quoted below are seeds 0–2 on the 2-core development machine.
 """
 
 import pytest
 
-from agents.exact.agent_vs_exact import bandit_fixed_alpha_check, bandit_tuned_alpha_check, lqr_check
+from kiln.exact.agent_vs_exact import bandit_fixed_alpha_check, bandit_tuned_alpha_check, lqr_check
 
 
 @pytest.mark.slow

@@ -4,8 +4,8 @@ import math
 
 import pytest
 
-from agents.exact.agent_vs_exact import AgentCheck
-from agents.exact.check_row import CheckRow, absolute_row, relative_row
+from kiln.exact.agent_vs_exact import AgentCheck
+from kiln.exact.check_row import CheckRow, absolute_row, relative_row
 
 
 def test_relative_row_by_hand():

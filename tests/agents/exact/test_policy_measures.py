@@ -9,10 +9,10 @@ import scipy.stats
 import torch
 from torch.distributions import AffineTransform, Normal, TanhTransform, TransformedDistribution
 
-from agents.action_scale import ActionScale
-from agents.actor import SquashedGaussianActor
-from agents.exact.policy_measures import actor_mean_action, actor_sampler
-from agents.policy_io import SavedPolicy
+from kiln.exact.policy_measures import actor_mean_action, actor_sampler
+from kiln.learner.action_scale import ActionScale
+from kiln.learner.actor import SquashedGaussianActor
+from kiln.storage.policy_io import SavedPolicy
 
 BOUND = 10.0  # FiringHold's default action bound
 

@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 from scipy.special import logsumexp, softmax
 
-from agents.exact.soft_dp import log_sum_exp, soft_backward_pass, soft_value_iteration
-from envs.glaze_trial import DECIDE, EXPERIMENTAL, STANDARD, glaze_trial_mdp
-from envs.gridworld import BOOK_DISCOUNT, book_gridworld
+from kiln.envs.glaze_trial import DECIDE, EXPERIMENTAL, STANDARD, glaze_trial_mdp
+from kiln.envs.gridworld import BOOK_DISCOUNT, book_gridworld
+from kiln.exact.soft_dp import log_sum_exp, soft_backward_pass, soft_value_iteration
 
 
 def test_log_sum_exp_matches_scipy() -> None:

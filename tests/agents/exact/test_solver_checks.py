@@ -7,8 +7,8 @@ import math
 import numpy as np
 import pytest
 
-from agents.exact.solver_checks import gridworld_check, log_prob_check, soft_bound_check, squashed_entropy_check
-from envs.gridworld import BOOK_V_STAR
+from kiln.envs.gridworld import BOOK_V_STAR
+from kiln.exact.solver_checks import gridworld_check, log_prob_check, soft_bound_check, squashed_entropy_check
 
 
 @pytest.mark.parametrize("alpha", [0.0, 1e-9])

@@ -5,8 +5,9 @@ import math
 import re
 from pathlib import Path
 
-from agents.exact import agent_vs_exact, verify
-from agents.exact.check_row import CheckRow
+from kiln.exact import agent_vs_exact
+from kiln.exact import verify_table as verify
+from kiln.exact.check_row import CheckRow
 
 REPO = Path(__file__).resolve().parents[3]
 

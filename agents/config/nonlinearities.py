@@ -1,0 +1,16 @@
+"""The hidden nonlinearities a config may name, and the torch module each name stands for.
+
+This is the one table: the settings check a name against it, the networks build their hidden
+layers from it, and a saved policy's ``spec.json`` is checked against it on loading.
+"""
+
+from __future__ import annotations
+
+from torch import nn
+
+NONLINEARITIES: dict[str, type[nn.Module]] = {
+    "relu": nn.ReLU,
+    "tanh": nn.Tanh,
+    "elu": nn.ELU,
+    "silu": nn.SiLU,
+}
