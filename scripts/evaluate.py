@@ -23,7 +23,7 @@ from kiln.config.presets import CONFIG_DIR
 from kiln.config.streams import LARGEST_EPISODES, LARGEST_SEED
 from kiln.errors import ConfigError
 from kiln.evaluation.policy_eval import EvaluationPlan, check_task_module, evaluate_policy, plan_evaluation
-from kiln.storage.policy_io import SavedPolicy, load_policy, resolve_policy_folder
+from kiln.storage.policy_io import Policy, load_policy, resolve_policy_folder
 from kiln.storage.run_folder import POLICY, RunFolder, write_json_atomic
 from kiln.storage.writable import check_writable, kept_only_if_complete
 
@@ -33,7 +33,7 @@ class Job:
     """One evaluation, checked: the policy, its episodes and where the results go."""
 
     folder: Path
-    policy: SavedPolicy
+    policy: Policy
     plan: EvaluationPlan
     mode: str
     out: Path

@@ -15,7 +15,7 @@ from kiln.envs.make import make_env
 from kiln.envs.task_spec import TaskSpec
 from kiln.errors import ConfigError, KilnError, PolicyFolderError
 from kiln.evaluation.rollout import run_episodes, summarise
-from kiln.storage.policy_io import SPEC, SavedPolicy
+from kiln.storage.policy_io import SPEC, Policy
 from kiln.storage.policy_spec import task_module
 from kiln.storage.writable import reason
 
@@ -55,7 +55,7 @@ class EvaluationPlan:
     source: str  # says where the seeds come from, for the printed summary
 
 
-def plan_evaluation(policy: SavedPolicy, episodes: int | None, seed: int | None) -> EvaluationPlan:
+def plan_evaluation(policy: Policy, episodes: int | None, seed: int | None) -> EvaluationPlan:
     """The episodes an evaluation runs.
 
     With no ``seed``, a policy saved by a training run is evaluated on that run's own evaluation
@@ -90,7 +90,7 @@ def plan_evaluation(policy: SavedPolicy, episodes: int | None, seed: int | None)
 
 
 def evaluate_policy(
-    policy: SavedPolicy,
+    policy: Policy,
     plan: EvaluationPlan,
     deterministic: bool = True,
     video_dir: Path | None = None,

@@ -31,7 +31,7 @@ if TYPE_CHECKING:  # annotations only: rollouts need neither torch nor the learn
     from kiln.learner.sac import SoftActorCritic
 
 # One observation → (action, its entropy term α·log π(a|s)); a policy without one returns 0.0.
-Policy = Callable[[np.ndarray], tuple[np.ndarray, float]]
+StepPolicy = Callable[[np.ndarray], tuple[np.ndarray, float]]
 # Observations [B, n] → (actions [B, m], entropy terms α·log π [B]).
 BatchPolicy = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
 # Observations [B, n] → (actions [B, m], log-densities log π [B]), both in the task's units.
@@ -167,7 +167,7 @@ def _masked(per_step: list[np.ndarray], mask: np.ndarray) -> np.ndarray:
 
 
 def rollout_episode(
-    env: gym.Env, policy: Policy, seed: int, to_env: Callable[[np.ndarray], np.ndarray] | None = None
+    env: gym.Env, policy: StepPolicy, seed: int, to_env: Callable[[np.ndarray], np.ndarray] | None = None
 ) -> Rollout:
     """:func:`rollout` of one episode of a single env (a batch of one); ``policy`` acts on one observation."""
 

@@ -33,7 +33,7 @@ from kiln.envs.task_spec import TaskSpec
 from kiln.evaluation.rollout import soft_returns
 from kiln.exact.check_row import CheckRow, relative_row
 from kiln.exact.policy_measures import actor_mean_action, actor_sampler
-from kiln.storage.policy_io import SavedPolicy, load_policy
+from kiln.storage.policy_io import Policy, load_policy
 from kiln.storage.run_folder import POLICY
 from kiln.training.trainer import train
 
@@ -103,7 +103,7 @@ def _compose(preset: str, overrides: Sequence[str], seed: int) -> dict[str, Any]
     return compose_config("train", [f"env={preset}", f"seed={seed}", *_QUIET, *overrides])
 
 
-def _train(config: dict[str, Any], run_dir: Path) -> tuple[dict[str, Any], SavedPolicy, float]:
+def _train(config: dict[str, Any], run_dir: Path) -> tuple[dict[str, Any], Policy, float]:
     """Train through the library; return the result, the saved policy and the training wall time."""
     started = time.perf_counter()
     result = train(config, run_dir)
@@ -111,7 +111,7 @@ def _train(config: dict[str, Any], run_dir: Path) -> tuple[dict[str, Any], Saved
 
 
 @torch.no_grad()
-def _bandit_policy(policy: SavedPolicy) -> tuple[float, float]:
+def _bandit_policy(policy: Policy) -> tuple[float, float]:
     """Pre-squash (mu, sigma) of the actor at DamperTrim's one (constant, zero) observation."""
     mean, log_std = policy.actor(torch.zeros(1, policy.actor.obs_dim))
     return float(mean[0, 0]), float(log_std[0, 0].exp())

@@ -14,7 +14,7 @@ import numpy as np
 import torch
 
 from kiln.evaluation.rollout import Sampler
-from kiln.storage.policy_io import SavedPolicy
+from kiln.storage.policy_io import Policy
 
 # Probabilists' Gauss–Hermite nodes for E over a Gaussian: exact for polynomials of degree < 64, so
 # for the smooth tanh of a narrow Gaussian the rule's error is far below float32 rounding.
@@ -22,12 +22,12 @@ _HERMITE_NODES, _HERMITE_WEIGHTS = np.polynomial.hermite_e.hermegauss(32)
 _HERMITE_WEIGHTS = _HERMITE_WEIGHTS / _HERMITE_WEIGHTS.sum()
 
 
-def _half_range(policy: SavedPolicy) -> np.ndarray:
+def _half_range(policy: Policy) -> np.ndarray:
     return (policy.scale.high - policy.scale.low) / 2.0
 
 
 @torch.no_grad()
-def actor_mean_action(policy: SavedPolicy, states: np.ndarray) -> np.ndarray:
+def actor_mean_action(policy: Policy, states: np.ndarray) -> np.ndarray:
     """E[action] in task units of the stochastic policy at each observation, by Gauss–Hermite quadrature.
 
     Args:
@@ -45,7 +45,7 @@ def actor_mean_action(policy: SavedPolicy, states: np.ndarray) -> np.ndarray:
     return centre + _half_range(policy) * squashed
 
 
-def actor_sampler(policy: SavedPolicy, generator: torch.Generator) -> Sampler:
+def actor_sampler(policy: Policy, generator: torch.Generator) -> Sampler:
     """Draw from a saved policy, returning actions and log-densities in task units.
 
     Args:

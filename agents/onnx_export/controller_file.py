@@ -12,7 +12,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from kiln.errors import KilnError
-from kiln.storage.policy_io import SavedPolicy, load_policy, resolve_policy_folder
+from kiln.storage.policy_io import Policy, load_policy, resolve_policy_folder
 from kiln.storage.run_folder import write_bytes_atomic
 from kiln.version import KILN_VERSION
 
@@ -80,7 +80,7 @@ def check_out(out: Path, overwrite: bool) -> Path:
     return out
 
 
-def _metadata(policy: SavedPolicy, stochastic: bool) -> dict[str, str]:
+def _metadata(policy: Policy, stochastic: bool) -> dict[str, str]:
     """Text stored in the file, so a runtime can read what it drives without the policy folder."""
     spec = policy.spec
     inputs = "observation [batch, n]" + (", noise [batch, m] ~ N(0, I)" if stochastic else "")

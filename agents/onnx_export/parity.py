@@ -7,7 +7,7 @@ import onnxruntime
 import torch
 
 from kiln.onnx_export.graph import ACTION, NOISE, OBSERVATION
-from kiln.storage.policy_io import SavedPolicy
+from kiln.storage.policy_io import Policy
 
 
 def sample_observations(low: np.ndarray, high: np.ndarray, count: int, rng: np.random.Generator) -> np.ndarray:
@@ -40,7 +40,7 @@ def sample_observations(low: np.ndarray, high: np.ndarray, count: int, rng: np.r
 
 @torch.no_grad()
 def kiln_actions(
-    policy: SavedPolicy, observations: np.ndarray, noise_seed: int | None
+    policy: Policy, observations: np.ndarray, noise_seed: int | None
 ) -> tuple[np.ndarray, np.ndarray | None]:
     """Kiln's actions in task units for a batch, and the noise a stochastic draw used.
 
@@ -74,7 +74,7 @@ def exported_actions(
     return session.run([ACTION], feeds)[0]
 
 
-def max_difference(model_bytes: bytes, policy: SavedPolicy, stochastic: bool, count: int, seed: int) -> float:
+def max_difference(model_bytes: bytes, policy: Policy, stochastic: bool, count: int, seed: int) -> float:
     """Largest |onnxruntime − Kiln| over every element of ``count`` observations within the bounds.
 
     Args:

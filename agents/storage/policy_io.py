@@ -45,7 +45,7 @@ def _bounds_to_json(values: np.ndarray) -> list[float | str]:
 
 
 @dataclass
-class SavedPolicy:
+class Policy:
     """A loaded policy: the actor, the action bounds and the spec it came with."""
 
     actor: SquashedGaussianActor
@@ -262,7 +262,7 @@ def _check_weights_header(path: Path, shape: ActorShape) -> None:
         raise bad(path, f"tensor {wrong[0]} is {found[wrong[0]][1]}, not float32 as Kiln saves")
 
 
-def load_policy(path: Path) -> SavedPolicy:
+def load_policy(path: Path) -> Policy:
     """Load a saved policy: nothing is unpickled, nothing named by the files is imported, and every
     size is checked against caps and the weights file's header before the network is built.
 
@@ -310,4 +310,4 @@ def load_policy(path: Path) -> SavedPolicy:
             layer.weight.copy_(tensors[f"layers.{i}.weight"].unsqueeze(0))
             layer.bias.copy_(tensors[f"layers.{i}.bias"].reshape(1, 1, -1))
     actor.eval()
-    return SavedPolicy(actor=actor, scale=ActionScale(low, high), spec=spec)
+    return Policy(actor=actor, scale=ActionScale(low, high), spec=spec)

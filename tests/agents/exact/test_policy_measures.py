@@ -12,14 +12,14 @@ from torch.distributions import AffineTransform, Normal, TanhTransform, Transfor
 from kiln.exact.policy_measures import actor_mean_action, actor_sampler
 from kiln.learner.action_scale import ActionScale
 from kiln.learner.actor import SquashedGaussianActor
-from kiln.storage.policy_io import SavedPolicy
+from kiln.storage.policy_io import Policy
 
 BOUND = 10.0  # FiringHold's default action bound
 
 
-def _policy(seed: int = 0) -> SavedPolicy:
+def _policy(seed: int = 0) -> Policy:
     actor = SquashedGaussianActor(2, 1, (16, 16), "relu", (-20.0, 2.0), torch.Generator().manual_seed(seed))
-    return SavedPolicy(actor=actor, scale=ActionScale(np.array([-BOUND]), np.array([BOUND])), spec={})
+    return Policy(actor=actor, scale=ActionScale(np.array([-BOUND]), np.array([BOUND])), spec={})
 
 
 def test_sampler_log_density_is_the_task_unit_density():
