@@ -1,6 +1,6 @@
 #!/usr/bin/env bash
 # A real one-node SLURM cluster on this machine, for the test of sweeps launched with launcher=slurm
-# (tests/scripts/test_slurm_sweep.py).
+# (tests/launchers/test_slurm_launcher.py).
 #
 #   bash .ci/slurm_cluster.sh start STATE_DIR   install Debian's packages if missing, write a
 #                                               slurm.conf bound to loopback, start munged,

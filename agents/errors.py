@@ -112,5 +112,12 @@ class SweepError(KilnError):
         self.exit_code, self.prefix = exit_code, prefix
 
 
+class TaskSetupError(KilnError, TaskError):
+    """A task cannot be built as asked, as Kiln's Python API (kiln.api) raises it: the tasks' own
+    :class:`TaskError` (kiln.envs imports nothing else of Kiln, so it has its own) made a KilnError
+    too, so that ``except kiln.KilnError`` catches every user error and ``except TaskError`` still works.
+    """
+
+
 # Every error a command prints as one line: Kiln's own and the tasks' (envs/ has its own).
 USER_ERRORS = (KilnError, TaskError)

@@ -23,7 +23,7 @@ V(x) = alpha log integral exp(Q(x, u) / alpha) du):
         c = [gamma tr(PW) - (alpha / 2) log det(2 pi Sigma)] / (1 - gamma).
     There is no e inside the log det: the e of the Gaussian entropy (alpha / 2) log det(2 pi e Sigma) is
     cancelled by the expected quadratic penalty E[(u + Kx)'M(u + Kx)] = tr(M Sigma) = (alpha / 2) m.
-tests/envs/test_lqr.py checks this constant against a Monte Carlo estimate and against a Lyapunov
+tests/envs/test_lqr_solution.py checks this constant against a Monte Carlo estimate and against a Lyapunov
 evaluation of the policy with the Gaussian entropy's e written out.
 """
 

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import importlib
 import os
-import sys
 from collections.abc import Callable
 from typing import Any, TypeVar
 
@@ -89,18 +88,16 @@ def _registered_id(task_id: str) -> str:
     module, separator, name = task_id.partition(":")
     if not separator:
         return task_id
-    # Scripts run as ``python scripts/train.py`` have scripts/ on sys.path, not the folder the command
-    # was typed in; look there too (last, so a file there never shadows an installed package).
-    here = os.getcwd()
-    if here not in sys.path:
-        sys.path.append(here)
+    # The module is looked up on sys.path as the caller has it, which is not changed here: the commands
+    # put the folder they run from on it (kiln.cli), a Python caller decides for its own process.
     try:
         importlib.import_module(module)
     except ModuleNotFoundError as err:
         if err.name is not None and (module == err.name or module.startswith(err.name + ".")):
             raise TaskError(
                 f"cannot import module {module!r} named in the task id {task_id!r}: it must be importable "
-                f"from the current directory ({here}) or installed"
+                f"from the current directory ({os.getcwd()}) for a kiln command, on sys.path for a Python "
+                "caller, or installed"
             ) from None
         raise TaskError(
             f"module {module!r} of task {task_id!r} failed to import ({err}): install what it needs"

@@ -18,6 +18,15 @@ from kiln.envs.task_error import TaskError
 _SUPPORTED_MODES = (AutoresetMode.NEXT_STEP, AutoresetMode.SAME_STEP)
 
 
+def _is_count(value: Any) -> bool:
+    """Whether ``value`` is a whole number >= 1 (``2`` or ``2.0``; not ``True``, ``"2"`` or ``None``)."""
+    # The type is checked first: int() of a text, a list or None raises an error of its own, not a TaskError.
+    try:
+        return not isinstance(value, bool) and isinstance(value, (int, float, np.integer)) and int(value) == value >= 1
+    except (OverflowError, ValueError):  # inf, nan
+        return False
+
+
 class TaskVectorEnv(VectorEnv):
     """Runs ``num_envs`` copies of a task's ``BatchedDynamics`` with time limits and autoreset.
 
@@ -47,10 +56,9 @@ class TaskVectorEnv(VectorEnv):
         Raises:
             TaskError: If num_envs, max_episode_steps or autoreset_mode is invalid.
         """
-        if isinstance(num_envs, bool) or int(num_envs) != num_envs or num_envs < 1:
+        if not _is_count(num_envs):
             raise TaskError(f"num_envs must be an integer >= 1, got {num_envs!r}; pass e.g. 8")
-        limit = max_episode_steps
-        if limit is not None and (isinstance(limit, bool) or int(limit) != limit or limit < 1):
+        if max_episode_steps is not None and not _is_count(max_episode_steps):
             raise TaskError(
                 f"max_episode_steps must be an integer >= 1 or None, got {max_episode_steps!r}; pass e.g. 200"
             )

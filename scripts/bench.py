@@ -156,7 +156,7 @@ def run_loop(args: argparse.Namespace, out: dict[str, Any]) -> None:
 
     cost = act_cost()
     out["act_us"] = {"warm": cost.warm_us, "after_update": cost.after_update_us, "after_pause": cost.after_pause_us}
-    print(f"  one training action (NumPy, Pendulum size): {cost.warm_us:.0f} µs repeated at once, "
+    print(f"  one training action (torch actor, Pendulum size): {cost.warm_us:.0f} µs repeated at once, "
           f"{cost.after_update_us:.0f} µs right after an update ({cost.ratio:.1f}x), "
           f"{cost.after_pause_us:.0f} µs after a busy pause as long as an update")
 
@@ -231,23 +231,24 @@ def main(argv: list[str] | None = None) -> None:
     args = parse_args(argv)
     if not args.profile and {"loop", "sweep"} & set(args.parts):
         _check_budget(args.steps)
-    import torch  # loads only past the argument checks, so a typo is answered at once
+    # Loads torch only past the argument checks, so a typo is answered at once.
+    from kiln.training.process_state import torch_settings
 
-    torch.set_num_threads(1)
-    if args.profile:
-        run_profile(args)
-        return
-    out = empty_report(args)
-    load_start, wall0 = os.getloadavg()[0], time.perf_counter()
-    print(f"kiln bench: one torch thread, float32; rates per CPU-second of the measuring thread; load average {load_start:.2f}")
-    if "gemm" in args.parts:
-        run_gemm_and_update(args, out)
-    if "population" in args.parts:
-        run_population(args, out)
-    if "loop" in args.parts:
-        run_loop(args, out)
-    if "sweep" in args.parts:
-        run_sweep(args, out)
+    with torch_settings(threads=1):
+        if args.profile:
+            run_profile(args)
+            return
+        out = empty_report(args)
+        load_start, wall0 = os.getloadavg()[0], time.perf_counter()
+        print(f"kiln bench: one torch thread, float32; rates per CPU-second of the measuring thread; load average {load_start:.2f}")
+        if "gemm" in args.parts:
+            run_gemm_and_update(args, out)
+        if "population" in args.parts:
+            run_population(args, out)
+        if "loop" in args.parts:
+            run_loop(args, out)
+        if "sweep" in args.parts:
+            run_sweep(args, out)
     out["load_average"] = {"start": load_start, "end": os.getloadavg()[0]}
     out["wall_s"] = time.perf_counter() - wall0
     print(json.dumps(out))

@@ -61,6 +61,20 @@ def _raise_terminated(signum: int, frame: object) -> None:
 _raise_terminated.kiln_own = True  # type: ignore[attr-defined]  # the training loop does not pass stops on to it
 
 
+def user_folder_importable() -> None:
+    """Make the folder the command runs from importable, so that ``env.id=<module>:<TaskId>`` finds the
+    user's own module there (called at start by the commands that build tasks).
+
+    ``python scripts/train.py`` puts scripts/ on sys.path, not the folder the command was typed in;
+    the folder goes last, so a file there never shadows an installed package. (The ``kiln`` command
+    has already put it first, after importing Kiln; then nothing changes here.) The library never
+    touches sys.path: this is the command's process.
+    """
+    here = os.getcwd()
+    if here not in sys.path:
+        sys.path.append(here)
+
+
 def stop_politely_on_sigterm() -> None:
     """Make SIGTERM end a command with one line (exit 143) instead of silently (called at start)."""
     signal.signal(signal.SIGTERM, _raise_terminated)

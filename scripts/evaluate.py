@@ -17,7 +17,7 @@ from typing import Any
 import hydra
 from omegaconf import DictConfig, OmegaConf
 
-from kiln.cli.common import check_overrides, guarded, plural, stop_politely_on_sigterm
+from kiln.cli.common import check_overrides, guarded, plural, stop_politely_on_sigterm, user_folder_importable
 from kiln.config import checks
 from kiln.config.presets import CONFIG_DIR
 from kiln.config.streams import LARGEST_EPISODES, LARGEST_SEED
@@ -131,6 +131,7 @@ def _hydra_entry(cfg: DictConfig) -> None:
 def main() -> None:
     """Check the command line, then hand it to Hydra."""
     stop_politely_on_sigterm()
+    user_folder_importable()  # task_module=<module>: the user's module in this folder
     guarded(lambda: (check_overrides("evaluate", sys.argv[1:], check_evaluate_config), _hydra_entry()))
 
 

@@ -19,7 +19,7 @@ from hydra.errors import HydraException
 from hydra_plugins.kiln_launchers import register as register_launchers
 from omegaconf import DictConfig, OmegaConf
 
-from kiln.cli.common import check_overrides, expand_overrides, guarded, stop_politely_on_sigterm
+from kiln.cli.common import check_overrides, expand_overrides, guarded, stop_politely_on_sigterm, user_folder_importable
 from kiln.config.presets import CONFIG_DIR, compose_node
 from kiln.launchers.launcher_settings import TARGET as POPULATION_LAUNCHER
 from kiln.launchers.launcher_settings import check_n_jobs, worker_count
@@ -89,6 +89,7 @@ def _hydra_entry(cfg: DictConfig) -> float:
 def main() -> None:
     """Check the command line, then hand it to Hydra."""
     stop_politely_on_sigterm()
+    user_folder_importable()  # env.id=<module>:<TaskId> with the user's module in this folder
     register_launchers()  # launcher=population and launcher=slurm: an editable install hides them from Hydra's scan
     args = sys.argv[1:]
     guarded(lambda: (check_overrides("train", args, check_run), check_output_folder(args), check_launcher_settings(args),

@@ -45,7 +45,8 @@ def main(argv: list[str] | None = None) -> int:
     os.environ.pop(PRESETS_ENV, None)
     from kiln.exact.verify_table import format_table, report_json, run_verify  # torch loads only past the checks
 
-    report = run_verify(args.quick, args.seed, say=lambda line: print(line, flush=True))
+    # A Kiln error inside the checks (a preset that cannot be composed) is bad input: one line, exit 2.
+    report = guarded(lambda: run_verify(args.quick, args.seed, say=lambda line: print(line, flush=True)))
     print(format_table(report), flush=True)
     if args.out is not None:
         try:  # atomic: a failed write leaves no half file, and an earlier table whole

@@ -1,4 +1,4 @@
-"""The crafted pickles of tests/pickle_bomb.py are live: loading them the unsafe way creates the
+"""The crafted pickles of tests/support/pickle_bomb.py are live: loading them the unsafe way creates the
 marker, so a test that finds the marker absent has shown that nothing unpickled them."""
 
 import io

@@ -1,9 +1,9 @@
 """What one training action costs when the loop asks for it, against the same call repeated at once.
 
-In the loop, each action is computed right after an update. The probe times the NumPy policy sample
-of a Pendulum-size agent (:meth:`kiln.learner.sac.SoftActorCritic.act_all`) three ways: right after an
-update, repeated at once, and after a busy pause as long as an update that touches no data (a loop
-reading the clock). If the call after the pause costs what it costs after an update, its extra cost
+In the loop, each action is computed right after an update. The probe times the torch actor's
+policy sample of a Pendulum-size agent (:meth:`kiln.learner.sac.SoftActorCritic.act_all`) three ways:
+right after an update, repeated at once, and after a busy pause as long as an update that touches
+no data (a loop reading the clock). If the call after the pause costs what it costs after an update, its extra cost
 is not the update's doing (its operands displacing the acting code from the caches) but the time
 that passed: on a shared virtual machine other tenants run on the same cores in between.
 """

@@ -16,6 +16,7 @@ import torch
 
 from kiln.config.presets import compose_config
 from kiln.training.checkpoint import CheckpointStore
+from kiln.training.process_state import torch_settings
 from kiln.training.replay import ReplayBuffer
 
 
@@ -78,10 +79,10 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--skip-run", action="store_true", help="only the 10^6 replay pauses")
     args = parser.parse_args()
-    torch.set_num_threads(1)
-    figures = {"replay_1e6": full_replay_pauses()}
-    if not args.skip_run:
-        figures["default_task"] = run_share([])
+    with torch_settings(threads=1):
+        figures = {"replay_1e6": full_replay_pauses()}
+        if not args.skip_run:
+            figures["default_task"] = run_share([])
     print(json.dumps(figures, indent=1))
 
 

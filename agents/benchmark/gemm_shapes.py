@@ -15,7 +15,7 @@ Haarnoja et al. 2018, arXiv 1812.05905):
 * temperature and Polyak averaging: no products.
 
 The enumeration is checked against torch.utils.flop_counter.FlopCounterMode over a real update
-(tests/agents/test_bench_gemm_shapes.py), so a change of the update that adds or drops a product
+(tests/benchmark/test_gemm_shapes.py), so a change of the update that adds or drops a product
 shows up there.
 """
 

@@ -3,15 +3,13 @@
 from __future__ import annotations
 
 import logging
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 from tensorboard.backend.event_processing import event_accumulator
-
-# TensorBoard reports odd records through Python logging, which would print to stderr in the middle
-# of the report; the comparison says what matters itself.
-logging.getLogger("tensorboard").setLevel(logging.ERROR)
 
 # 0 keeps every scalar (the default keeps a reservoir sample, which would drop evaluations);
 # the rest are never read here, so keep one of each to save memory.
@@ -57,6 +55,23 @@ class ScalarSeries:
         return int(self.steps[position]), float(self.values[position])
 
 
+@contextmanager
+def _tensorboard_quiet() -> Iterator[None]:
+    """TensorBoard's logger at ERROR while the block reads, then back at the caller's level.
+
+    TensorBoard reports odd records through Python logging, which would print to stderr in the middle
+    of the report; the comparison says what matters itself. The level is the caller's setting, so it
+    is changed only while Kiln reads.
+    """
+    logger = logging.getLogger("tensorboard")
+    level = logger.level
+    logger.setLevel(logging.ERROR)
+    try:
+        yield
+    finally:
+        logger.setLevel(level)
+
+
 def has_event_files(directory: Path) -> bool:
     """Whether ``directory`` directly holds TensorBoard event files.
 
@@ -81,12 +96,14 @@ def read_scalars(run_dir: Path) -> dict[str, ScalarSeries]:
     Returns:
         Tag → series; empty if there are no event files or no scalars.
     """
-    accumulator = event_accumulator.EventAccumulator(str(run_dir), size_guidance=_SIZE_GUIDANCE)
-    accumulator.Reload()
+    with _tensorboard_quiet():
+        accumulator = event_accumulator.EventAccumulator(str(run_dir), size_guidance=_SIZE_GUIDANCE)
+        accumulator.Reload()
+        tags = {tag: accumulator.Scalars(tag) for tag in accumulator.Tags()[event_accumulator.SCALARS]}
     series = {}
-    for tag in accumulator.Tags()[event_accumulator.SCALARS]:
+    for tag, events in tags.items():
         latest: dict[int, tuple[float, float]] = {}
-        for event in accumulator.Scalars(tag):
+        for event in events:
             step = int(event.step)
             # ">=": of two writes with the same wall time, the one read later is the later write.
             if step not in latest or event.wall_time >= latest[step][0]:

@@ -86,11 +86,11 @@ def format_value(value: Hashable) -> str:
 
 
 def resolved_target_entropy(run: Run) -> Hashable | None:
-    """The number the run's temperature tuner aimed at, "auto" resolved.
+    """The number the run's temperature tuner aimed at, ``minus_action_dims`` resolved.
 
     Taken from result.json's ``target_entropy``, else the last ``temperature/target_entropy``
-    scalar, else the config when it holds a number (or list); "auto" alone cannot be resolved here
-    because −dim(A) needs the task's action space.
+    scalar, else the config when it holds a number (or list); ``minus_action_dims`` (or a run's
+    older word for it) alone cannot be resolved here because −dim(A) needs the task's action space.
 
     Args:
         run: The run.

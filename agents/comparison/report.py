@@ -86,7 +86,7 @@ def _describe_grouping(comparison: Comparison) -> str:
     """One line saying what the groups are."""
     key = comparison.settings.group_by
     if key == TARGET_ENTROPY_KEY:
-        return f"grouped by {key}, resolved (\"auto\" counts as -dim(A))"
+        return f"grouped by {key}, resolved (minus_action_dims counts as -dim(A))"
     return f"grouped by {key}"
 
 

@@ -8,6 +8,7 @@ Appendix D, Table 1) unless a comment says otherwise.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
 from typing import Any
@@ -83,7 +84,8 @@ class AgentSettings:
         values = dict(data)
         parts: dict[str, dict[str, Any]] = {}
         for name, kind in (("actor", ActorSettings), ("critic", CriticSettings), ("temperature", TemperatureSettings)):
-            part = values.pop(name, None) or {}
+            part = values.pop(name, None)
+            part = {} if part is None else part  # only a missing or null group keeps its defaults
             if not isinstance(part, Mapping):
                 raise ConfigError(f"agent.{name} must be a group of keys, got {part!r}: see configs/agent/published.yaml")
             refuse_old_keys(part, f"agent.{name}")
@@ -102,7 +104,9 @@ class AgentSettings:
 def _target_entropy(value: Any, path: str) -> Any:
     """``minus_action_dims``, a finite number, or a list of finite numbers (length checked on resolving)."""
     if isinstance(value, str):
-        resolve_target_entropy(value, 1)  # refuses "auto" and unknown words with the fix
+        resolve_target_entropy(value, 1)  # refuses "auto", unknown words and non-finite numbers with the fix
+        if value != MINUS_ACTION_DIMS:
+            checks.number(float(value), path, -1e6, 1e6)  # a number written as text: the range of a number
         return value
     if isinstance(value, (list, tuple)):
         if not value:
@@ -160,11 +164,14 @@ def resolve_target_entropy(spec: Any, act_dim: int) -> tuple[float, ...]:
         if spec == "auto":
             raise ConfigError(f"{key}=auto is an old name: use {key}={MINUS_ACTION_DIMS} (= −dim(A))")
         try:
-            return (float(spec),)
+            number = float(spec)
         except ValueError:
             raise ConfigError(
                 f"{key}={spec!r} is not understood: use {MINUS_ACTION_DIMS}, a number, or a list of {act_dim} numbers"
             ) from None
+        if not math.isfinite(number):
+            raise ConfigError(f"{key}={spec!r} must be a finite number: use {MINUS_ACTION_DIMS} or a finite number")
+        return (number,)
     if isinstance(spec, bool):
         raise ConfigError(f"{key} must be {MINUS_ACTION_DIMS}, a number or a list, not a boolean")
     if isinstance(spec, (int, float)):

@@ -120,7 +120,8 @@ def parse_run_config(raw: Mapping[str, Any]) -> RunConfig:
     if not isinstance(env.get("id"), str) or not env["id"]:
         raise ConfigError("env.id is missing: choose a preset (env=pendulum) or set env.id=<Gymnasium id>")
     limit = env.get("max_episode_steps")
-    kwargs = env.get("kwargs") or {}
+    kwargs = env.get("kwargs")
+    kwargs = {} if kwargs is None else kwargs  # only a missing or null env.kwargs means "no options"
     if not isinstance(kwargs, Mapping):
         raise ConfigError(f"env.kwargs must be a group of keyword arguments, got {kwargs!r}: set env.kwargs={{}}")
     env_settings = EnvSettings(

@@ -38,7 +38,7 @@ from kiln.storage.run_folder import POLICY
 from kiln.training.trainer import train
 
 # Tolerances of issue 3 (the project's requirement; no outside source). The tests repeat these numbers
-# beside their asserts; tests/agents/exact/test_verify.py keeps the two in step.
+# beside their asserts; tests/exact/test_verify_table.py keeps the two in step.
 BANDIT_FIXED_TOLERANCE = 0.05  # relative, on the mean and the std of the action
 BANDIT_TUNED_TOLERANCE = 0.10  # relative, on the learned α and on the policy's entropy
 LQR_ACTION_TOLERANCE = 0.10  # relative RMS error of the mean action over the state grid

@@ -30,7 +30,7 @@ BOUND_SLACK = 1e-9
 # at |u| = 20, where one float32 step is 3e-5, so the difference is scaled by 1 + |log π|.
 LOG_PROB_TOLERANCE = 1e-5
 # Entropy of tanh(u), u ~ N(0, 1), by SciPy quadrature (recomputed independently of Kiln's code in
-# tests/agents/test_squashed_gaussian.py).
+# tests/learner/test_squashed_gaussian.py).
 SQUASHED_NORMAL_ENTROPY = 0.6698
 # Printed to 4 decimals, so the true value lies within 5e-5 of it; 1e-4 leaves room for quadrature.
 SQUASHED_ENTROPY_TOLERANCE = 1e-4

@@ -14,13 +14,12 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import torch
-
 from kiln.errors import USER_ERRORS, RunStopped
 from kiln.launchers.stop_note import PopulationStop, launcher_gone
 from kiln.storage.run_folder import RunFolder, RunResult
 from kiln.storage.run_summary import describe_run
 from kiln.training.population import train_population
+from kiln.training.process_state import torch_settings
 
 
 @dataclass(frozen=True)
@@ -63,9 +62,8 @@ def run_population(
         One outcome per member, in the order given.
     """
     # Every member shares `threads` (it is not a member key), so the first member's value holds for all.
-    torch.set_num_threads(int(raw_configs[0].get("threads", 1)))
     stop = PopulationStop(launcher_pid, note)
-    with stop.held():
+    with torch_settings(int(raw_configs[0].get("threads", 1))), stop.held():
         try:
             if stop.requested:  # handed out after the launcher was stopped: leave its folders untouched
                 raise RunStopped(f"{stop.reason} before the population started", stop.exit_code)

@@ -13,8 +13,9 @@ import torch
 import torch.nn.functional as F
 from torch import nn
 
-from kiln.learner import numpy_actor, squashed_gaussian
-from kiln.learner.nets import EnsembleMLP
+from kiln.learner import squashed_gaussian
+from kiln.learner.actor_steps import Affine, Hidden, SoftLimits, SplitHeads, Squash, Step
+from kiln.learner.nets import EnsembleLinear, EnsembleMLP
 
 
 def soft_clamp(x: torch.Tensor, low: float, high: float) -> torch.Tensor:
@@ -35,7 +36,7 @@ class SquashedGaussianActor(nn.Module):
         obs_dim: Length of the flat observation.
         act_dim: Number of action dimensions.
         layer_widths: Widths of the hidden layers.
-        nonlinearity: Name of the hidden nonlinearity (see :data:`kiln.learner.nets.NONLINEARITIES`).
+        nonlinearity: Name of the hidden nonlinearity (see :data:`kiln.config.nonlinearities.NONLINEARITIES`).
         log_std_soft_limits: ``(low, high)`` for the log standard deviation of ``u``.
         generator: Source of the initial weights (owned by the run).
         population: Number of agents (one actor each, stacked on the leading axis).
@@ -95,11 +96,57 @@ class SquashedGaussianActor(nn.Module):
             out = out[0]
         return torch.tanh(out[..., : self.act_dim])
 
+    def steps(self, agent: int = 0) -> list[Step]:
+        """Agent ``agent``'s computation, observation → action, as typed steps in the order applied.
+
+        Derived from the modules the actor runs: each affine layer (its weight ``[in, out]`` and bias
+        as detached views of row ``agent``), each nonlinearity module between them, then the split of
+        the last layer's output into mean and raw log-std, the log-std soft limits and the tanh squash.
+        Saved policies' ``spec.json`` and the ONNX export are both written from this list.
+
+        Args:
+            agent: Which agent of the population (0 for a one-agent actor).
+
+        Returns:
+            The steps (see :mod:`kiln.learner.actor_steps`).
+
+        Raises:
+            IndexError: If ``agent`` is not an agent of this actor.
+        """
+        if not 0 <= agent < self.population:
+            raise IndexError(f"agent {agent} is not one of this actor's {self.population}")
+        steps: list[Step] = []
+        affine = 0
+        for module in self.body.layers:
+            if isinstance(module, EnsembleLinear):
+                steps.append(Affine(affine, module.weight.detach()[agent], module.bias.detach()[agent, 0]))
+                affine += 1
+            else:
+                steps.append(Hidden(self.nonlinearity, module))
+        return [*steps, SplitHeads(self.act_dim), SoftLimits(self.log_std_low, self.log_std_high), Squash()]
+
+    @torch.inference_mode()
     def act_batch(self, obs: np.ndarray, deterministic: bool, generator: torch.Generator | None = None) -> np.ndarray:
-        """Actions in (−1, 1) for observations ``[n, obs_dim]`` of a one-agent actor: ``tanh(mean)``, or
-        samples drawn from ``generator`` as :meth:`sample` draws them. The one way evaluation acts, in
-        training and in the evaluate command alike; in NumPy on views of the weights (kiln.learner.numpy_actor),
-        which measured 3x cheaper per call than torch for the small batches evaluation acts on."""
+        """Actions in (−1, 1) for observations ``[n, obs_dim]`` of a one-agent actor: the mode of
+        :meth:`deterministic`, or a sample of :meth:`sample`, whose noise is
+        ``torch.randn((n, act_dim), generator=generator)``. The one way evaluation acts, in training
+        and in the evaluate command alike.
+
+        Args:
+            obs: Observations (any float dtype; float64 from MuJoCo tasks is cast to float32).
+            deterministic: Return ``tanh(mean)`` instead of a sample.
+            generator: Source of the sample's noise (torch's global generator if ``None``).
+
+        Returns:
+            ``[n, act_dim]`` float32 actions.
+        """
+        x = observation_rows(obs)
         if deterministic:
-            return numpy_actor.deterministic_actions(self, obs)
-        return numpy_actor.sample_with_log_prob(self, obs, generator)[0]
+            return self.deterministic(x).numpy()
+        return self.sample(x, generator)[0].numpy()
+
+
+def observation_rows(obs: np.ndarray) -> torch.Tensor:
+    """Observations as a float32 tensor of their own (a copy: a task may hand out read-only arrays,
+    which torch would share and warn about)."""
+    return torch.from_numpy(np.array(obs, dtype=np.float32))

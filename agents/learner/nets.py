@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from itertools import pairwise
 
 import torch
 from torch import nn
@@ -78,7 +79,7 @@ class EnsembleMLP(nn.Module):
             raise ValueError(f"unknown nonlinearity {nonlinearity!r}: choose one of {sorted(NONLINEARITIES)}")
         sizes = [in_features, *layer_widths, out_features]
         layers: list[nn.Module] = []
-        for i, (fan_in, fan_out) in enumerate(zip(sizes[:-1], sizes[1:])):
+        for i, (fan_in, fan_out) in enumerate(pairwise(sizes)):
             layers.append(EnsembleLinear(members, fan_in, fan_out, generator))
             if i < len(sizes) - 2:
                 layers.append(NONLINEARITIES[nonlinearity]())

@@ -20,8 +20,7 @@ import torch
 from torch import nn
 
 from kiln.config.agent_settings import AgentSettings
-from kiln.learner import numpy_actor
-from kiln.learner.actor import SquashedGaussianActor
+from kiln.learner.actor import SquashedGaussianActor, observation_rows
 from kiln.learner.critic import SoftQEnsemble
 from kiln.learner.temperature import Temperature
 
@@ -56,39 +55,9 @@ class MemberSetup:
 
 
 def _adam(params: Sequence[torch.Tensor] | object, lr: float) -> torch.optim.Adam:
-    # The fused kernel does Adam's arithmetic for a whole tensor in one pass (measured 1.08x on the
-    # default update, 1.06x at 2x64 in the contributor guide's benchmark); same algorithm and defaults.
+    # torch's fused kernel: Adam's arithmetic for a whole tensor in one pass; the same algorithm and
+    # defaults as the plain implementation (torch.optim.Adam documentation).
     return torch.optim.Adam(params, lr=lr, fused=True)
-
-
-@torch.no_grad()
-def adam_step(opt: torch.optim.Adam) -> None:
-    """``opt.step()`` for one of :func:`_adam`'s optimisers: the same fused kernel on the same tensors.
-
-    Once every parameter with a gradient has its moments, the step is called directly, without the
-    optimiser's per-call bookkeeping (grouping by device, hooks, a profiler record): ≈40 µs of
-    Python per call, three calls per update. Anything else (the first step, which creates the
-    moments) goes through ``opt.step()``.
-    """
-    group = opt.param_groups[0]
-    params = [p for p in group["params"] if p.grad is not None]
-    states = [opt.state.get(p) for p in params]
-    if len(opt.param_groups) != 1 or not params or not all(states) or group["amsgrad"] or group["maximize"]:
-        opt.step()
-        return
-    steps = [s["step"] for s in states]
-    torch._foreach_add_(steps, 1)
-    torch._fused_adam_(
-        params, [p.grad for p in params], [s["exp_avg"] for s in states], [s["exp_avg_sq"] for s in states], [], steps,
-        amsgrad=False, lr=group["lr"], beta1=group["betas"][0], beta2=group["betas"][1],
-        weight_decay=group["weight_decay"], eps=group["eps"], maximize=False,
-    )  # fmt: skip
-
-
-def clear_grads(params: Sequence[torch.Tensor]) -> None:
-    """``zero_grad(set_to_none=True)`` without the optimiser's profiler record and grouping."""
-    for p in params:
-        p.grad = None
 
 
 class SoftActorCritic(nn.Module):
@@ -127,7 +96,6 @@ class SoftActorCritic(nn.Module):
         self.critic_opt = _adam(self.critic.parameters(), s.critic.lr)
         self.temperature_opt = _adam([self.temperature.log_alpha], s.temperature.lr)
         self._online = list(self.critic.parameters())
-        self._actor_params = list(self.actor.parameters())
         self._targets = list(self.critic_target.parameters())
 
     @classmethod
@@ -139,16 +107,23 @@ class SoftActorCritic(nn.Module):
 
     # ----- acting (one agent, or every agent at once) ----------------------------------------------
 
+    @torch.inference_mode()
     def act_all(self, obs: np.ndarray) -> np.ndarray:
-        """A policy sample for every agent, ``[population, act_dim]``, from ``obs`` ``[population, obs_dim]``,
-        each drawn from the agent's own generator."""
-        return numpy_actor.sample_actions(self.actor, obs, self.generators)
+        """A policy sample for every agent, ``[population, act_dim]``, from ``obs`` ``[population, obs_dim]``.
 
+        Agent k's noise is ``torch.randn((1, act_dim), generator=generators[k])``, drawn by
+        :meth:`kiln.learner.actor.SquashedGaussianActor.sample` as the update draws it, so a run's
+        generator follows the same course in a population as alone.
+        """
+        return self.actor.sample(observation_rows(obs).unsqueeze(1), self.generators)[0][:, 0].numpy()
+
+    @torch.inference_mode()
     def sample_with_log_prob(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, np.ndarray]:
         """Policy samples for observations ``[n, obs_dim]`` of a one-agent population, drawn from
-        ``generator``, and their per-dimension log-densities, ``[n, act_dim]`` each. In NumPy, as
-        training actions are: the Q-bias diagnostic calls this once per step of its episodes."""
-        return numpy_actor.sample_with_log_prob(self.actor, obs, generator)
+        ``generator`` (noise ``torch.randn((n, act_dim), generator=generator)``), and their
+        per-dimension log-densities, ``[n, act_dim]`` each (the Q-bias diagnostic's samples)."""
+        action, log_prob, _ = self.actor.sample(observation_rows(obs), generator)
+        return action.numpy(), log_prob.numpy()
 
     def entropy_terms(self, log_prob: np.ndarray) -> np.ndarray:
         """α·log π of a one-agent population for per-dimension log-densities ``[..., act_dim]``, ``[...]``
@@ -190,9 +165,9 @@ class SoftActorCritic(nn.Module):
         q = self.critic(batch.obs, batch.action)
         td = q - target.unsqueeze(1)
         critic_loss = 0.5 * td.pow(2).mean(dim=2).sum()
-        clear_grads(self._online)
+        self.critic_opt.zero_grad(set_to_none=True)
         critic_loss.backward()
-        adam_step(self.critic_opt)
+        self.critic_opt.step()
 
         # 2. Actor: J_π = E[α log π(a|s) − min_k Q_k(s, a)], a reparameterised. The critic is frozen
         #    so that this backward pass does not compute gradients nobody uses.
@@ -200,16 +175,16 @@ class SoftActorCritic(nn.Module):
         action, log_prob, log_std = self.actor.sample(batch.obs, self.generators)
         q_pi = self.critic(batch.obs, action).min(dim=1).values
         actor_losses = (self.temperature.bonus(log_prob) - q_pi).mean(dim=1)
-        clear_grads(self._actor_params)
+        self.actor_opt.zero_grad(set_to_none=True)
         actor_losses.sum().backward()
-        adam_step(self.actor_opt)
+        self.actor_opt.step()
         self.critic.requires_grad_(True)
 
         # 3. Temperature (Eq. 18), on the same actions; its gradient in closed form (Temperature.gradient).
         temperature_objective = self.temperature.loss(log_prob).detach()
         if self.temperature.any_tuned:
             self.temperature.log_alpha.grad = self.temperature.gradient(log_prob)
-            adam_step(self.temperature_opt)
+            self.temperature_opt.step()
 
         # 4. Targets: θ̄ ← τ θ + (1 − τ) θ̄ after every gradient step (Table 1: update interval 1).
         self.polyak_update()
@@ -231,8 +206,10 @@ class SoftActorCritic(nn.Module):
 
     @torch.no_grad()
     def polyak_update(self) -> None:
-        """Move each target weight a fraction τ toward its online weight (one call for every tensor)."""
-        torch._foreach_lerp_(self._targets, self._online, self.settings.critic.target_smoothing)
+        """Move each target weight a fraction τ toward its online weight: θ̄ ← θ̄ + τ (θ − θ̄)."""
+        tau = self.settings.critic.target_smoothing
+        for target, online in zip(self._targets, self._online):
+            target.lerp_(online, tau)
 
     # ----- one agent's slice ------------------------------------------------------------------------
 

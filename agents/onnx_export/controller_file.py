@@ -130,12 +130,11 @@ def export_policy(
     _require_onnx()
     from kiln.onnx_export.graph import controller_model
     from kiln.onnx_export.parity import max_difference
-    from kiln.storage.policy_io import actor_tensors
 
-    tensors = {name: t.numpy() for name, t in actor_tensors(policy.actor).items()}
     try:
+        # The graph is the loaded actor's own steps; the map to task units is the policy's ActionScale.
         model = controller_model(
-            policy.spec["actor"], tensors, policy.scale.low, policy.scale.high, stochastic, opset,
+            policy.actor.steps(), policy.scale, stochastic, opset,
             _metadata(policy, stochastic), f"Kiln controller exported from {folder.resolve()}. {CAUTION}",
         )  # fmt: skip
     except ValueError as err:
@@ -153,4 +152,3 @@ def export_policy(
     except OSError as err:
         raise ExportError(f"cannot write {out} ({err.strerror}): choose another --out") from None
     return ExportReport(folder, Path(out), stochastic, opset, len(data), CHECK_OBSERVATIONS, gap)
-

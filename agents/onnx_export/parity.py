@@ -38,15 +38,14 @@ def sample_observations(low: np.ndarray, high: np.ndarray, count: int, rng: np.r
     return np.clip(out.astype(np.float32), low.astype(np.float32), high.astype(np.float32))
 
 
-@torch.no_grad()
 def kiln_actions(
     policy: Policy, observations: np.ndarray, noise_seed: int | None
 ) -> tuple[np.ndarray, np.ndarray | None]:
     """Kiln's actions in task units for a batch, and the noise a stochastic draw used.
 
-    The stochastic action comes from Kiln's own sampling path (``actor.sample``) with a generator
-    seeded ``noise_seed``; the same seed's first ``randn`` of the same shape is exactly the noise it
-    drew, which is what the exported graph must be fed to reproduce it.
+    The actions come from the way Kiln evaluates (``Policy.act_batch``); a stochastic one draws its
+    noise ``torch.randn((batch, m))`` from a generator seeded ``noise_seed``, so the same seed's first
+    draw of that shape is exactly the noise the exported graph must be fed to reproduce it.
 
     Args:
         policy: A loaded policy.
@@ -56,12 +55,11 @@ def kiln_actions(
     Returns:
         ``(actions [batch, m], noise [batch, m] or None)``.
     """
-    obs = torch.as_tensor(observations, dtype=torch.float32)
     if noise_seed is None:
-        return policy.scale.to_env(policy.actor.deterministic(obs).numpy()), None
-    action, _, _ = policy.actor.sample(obs, torch.Generator().manual_seed(noise_seed))
-    noise = torch.randn(action.shape, generator=torch.Generator().manual_seed(noise_seed), dtype=action.dtype)
-    return policy.scale.to_env(action.numpy()), noise.numpy()
+        return policy.act_batch(observations, deterministic=True), None
+    actions = policy.act_batch(observations, False, torch.Generator().manual_seed(noise_seed))
+    noise = torch.randn(actions.shape, generator=torch.Generator().manual_seed(noise_seed))
+    return actions, noise.numpy()
 
 
 def exported_actions(

@@ -26,8 +26,18 @@ from safetensors.torch import load_file, save
 from kiln.errors import PolicyFolderError
 from kiln.learner.action_scale import ActionScale
 from kiln.learner.actor import SquashedGaussianActor
-from kiln.learner.nets import EnsembleLinear
-from kiln.storage.policy_spec import ActorShape, actor_shape, bad, bounds, check_shape, check_task_id, mapping, read_spec
+from kiln.learner.actor_steps import ActorSteps, Hidden, check_steps
+from kiln.storage.policy_spec import (
+    ActorShape,
+    actor_shape,
+    bad,
+    bounds,
+    check_shape,
+    check_task_id,
+    mapping,
+    read_spec,
+    tensor_names,
+)
 from kiln.storage.run_folder import POLICY, replace_folder_atomic, write_bytes_atomic, write_text_atomic
 from kiln.version import KILN_VERSION
 
@@ -52,63 +62,66 @@ class Policy:
     scale: ActionScale
     spec: dict[str, Any]
 
-    @torch.no_grad()
     def act(self, obs: np.ndarray, deterministic: bool = True, generator: torch.Generator | None = None) -> np.ndarray:
-        """Action in the task's units for one observation."""
-        x = torch.as_tensor(np.asarray(obs), dtype=torch.float32).unsqueeze(0)
-        if deterministic:
-            a = self.actor.deterministic(x)
-        else:
-            a, _, _ = self.actor.sample(x, generator)
-        return self.scale.to_env(a[0].numpy())
+        """Action in the task's units for one observation (:meth:`act_batch` of one row)."""
+        return self.act_batch(np.asarray(obs)[None], deterministic, generator)[0]
 
     def act_batch(self, obs: np.ndarray, deterministic: bool = True, generator: torch.Generator | None = None) -> np.ndarray:
         """Actions in the task's units for observations ``[n, obs_dim]`` (see ``SquashedGaussianActor.act_batch``)."""
         return self.scale.to_env(self.actor.act_batch(obs, deterministic, generator))
 
 
-def _linear_layers(actor: SquashedGaussianActor) -> list[EnsembleLinear]:
-    return [m for m in actor.body.layers if isinstance(m, EnsembleLinear)]
+def _layout(parts: ActorSteps) -> dict[str, Any]:
+    """``spec.json``'s ``weight_layout``, written step by step from the actor's steps."""
+    affine, m = parts.affine, parts.split.action_size
+    hidden = sorted({s.name for s in parts.body if isinstance(s, Hidden)})
+    between = f"the nonlinearity ({', '.join(hidden)}) follows every layer but the last" if hidden else "no nonlinearity"
+    tensors = []
+    for step in affine:
+        weight, bias = tensor_names(step.layer)
+        tensors.append({
+            "layer": step.layer,
+            "weight": weight,
+            "weight_shape": list(step.weight.shape),
+            "bias": bias,
+            "bias_shape": list(step.bias.shape),
+            "role": "output" if step is affine[-1] else "hidden",
+        })  # fmt: skip
+    return {
+        "orientation": "y = x @ W + b, with x a row vector [batch, in], W [in, out], b [out]",
+        "layer_order": f"tensors are applied in the order listed; {between}",
+        "tensors": tensors,
+        "output_split": (
+            f"the last layer gives 2 x {m} numbers: the first {m} are the mean m "
+            f"of the pre-squash Gaussian u, the last {m} a raw log-std r"
+        ),
+        "log_std": (
+            "log_std = low + softplus(high - softplus(high - r) - low), with low, high = log_std_soft_limits "
+            f"({parts.limits.low!r}, {parts.limits.high!r})"
+        ),
+        # The squash (the steps' last) and the map to task units, ActionScale's affine formula
+        # (kiln.learner.action_scale).
+        "action": (
+            "deterministic: a = tanh(m); stochastic: a = tanh(m + exp(log_std) * e), e ~ N(0, I); "
+            "task units: low_a + (a + 1) / 2 * (high_a - low_a) with action_space's bounds"
+        ),
+    }
 
 
 def actor_block(actor: SquashedGaussianActor) -> dict[str, Any]:
-    """The ``actor`` block of ``spec.json``: enough to rebuild the controller without Kiln."""
-    layers = _linear_layers(actor)
-    low, high = actor.log_std_low, actor.log_std_high
+    """The ``actor`` block of ``spec.json``: enough to rebuild the controller without Kiln, its sizes
+    and weight layout written from :meth:`kiln.learner.actor.SquashedGaussianActor.steps`."""
+    parts = check_steps(actor.steps())
     return {
         "architecture": ARCHITECTURE,
         "architecture_version": ARCHITECTURE_VERSION,
-        "observation_size": actor.obs_dim,
-        "action_size": actor.act_dim,
-        "layer_widths": list(actor.layer_widths),
+        "observation_size": parts.observation_size,
+        "action_size": parts.split.action_size,
+        "layer_widths": [int(s.weight.shape[1]) for s in parts.affine[:-1]],
+        # The config's name for it (a network without hidden layers records it too).
         "nonlinearity": actor.nonlinearity,
-        "log_std_soft_limits": [low, high],
-        "weight_layout": {
-            "orientation": "y = x @ W + b, with x a row vector [batch, in], W [in, out], b [out]",
-            "layer_order": "tensors are applied in the order listed; the nonlinearity follows every layer but the last",
-            "tensors": [
-                {
-                    "layer": i,
-                    "weight": f"layers.{i}.weight",
-                    "weight_shape": [layer.in_features, layer.out_features],
-                    "bias": f"layers.{i}.bias",
-                    "bias_shape": [layer.out_features],
-                    "role": "output" if i == len(layers) - 1 else "hidden",
-                }
-                for i, layer in enumerate(layers)
-            ],
-            "output_split": (
-                f"the last layer gives 2 x {actor.act_dim} numbers: the first {actor.act_dim} are the mean m "
-                f"of the pre-squash Gaussian u, the last {actor.act_dim} a raw log-std r"
-            ),
-            "log_std": (
-                "log_std = low + softplus(high - softplus(high - r) - low), with low, high = log_std_soft_limits"
-            ),
-            "action": (
-                "deterministic: a = tanh(m); stochastic: a = tanh(m + exp(log_std) * e), e ~ N(0, I); "
-                "task units: low_a + (a + 1) / 2 * (high_a - low_a) with action_space's bounds"
-            ),
-        },
+        "log_std_soft_limits": [parts.limits.low, parts.limits.high],
+        "weight_layout": _layout(parts),
     }
 
 
@@ -143,9 +156,9 @@ def build_spec(
 def actor_tensors(actor: SquashedGaussianActor) -> dict[str, torch.Tensor]:
     """The actor's weights under the names and shapes ``spec.json`` documents (member axis dropped)."""
     tensors = {}
-    for i, layer in enumerate(_linear_layers(actor)):
-        tensors[f"layers.{i}.weight"] = layer.weight.detach()[0].contiguous().clone()
-        tensors[f"layers.{i}.bias"] = layer.bias.detach()[0, 0].contiguous().clone()
+    for step in check_steps(actor.steps()).affine:
+        weight, bias = tensor_names(step.layer)
+        tensors[weight], tensors[bias] = step.weight.contiguous().clone(), step.bias.contiguous().clone()
     return tensors
 
 
@@ -302,12 +315,16 @@ def load_policy(path: Path) -> Policy:
     broken = sorted(name for name, tensor in tensors.items() if not bool(torch.isfinite(tensor).all()))
     if broken:
         raise bad(weights_path, f"tensor {broken[0]} holds NaN or infinite numbers, so the policy cannot act")
+    # A generator of its own for the placeholder weights (overwritten below): building the actor must
+    # not move the caller's global torch generator.
     actor = SquashedGaussianActor(
-        shape.observation_size, shape.action_size, list(shape.layer_widths), shape.nonlinearity, shape.log_std_soft_limits
+        shape.observation_size, shape.action_size, list(shape.layer_widths), shape.nonlinearity, shape.log_std_soft_limits,
+        generator=torch.Generator(),
     )
     with torch.no_grad():
-        for i, layer in enumerate(_linear_layers(actor)):
-            layer.weight.copy_(tensors[f"layers.{i}.weight"].unsqueeze(0))
-            layer.bias.copy_(tensors[f"layers.{i}.bias"].reshape(1, 1, -1))
+        for i, layer in enumerate(actor.body.linears()):
+            weight, bias = tensor_names(i)
+            layer.weight.copy_(tensors[weight].unsqueeze(0))
+            layer.bias.copy_(tensors[bias].reshape(1, 1, -1))
     actor.eval()
     return Policy(actor=actor, scale=ActionScale(low, high), spec=spec)

@@ -121,6 +121,11 @@ def check_shape(space: Mapping[str, Any], size: int, name: str, path: Path) -> N
         raise bad(path, f"{name}.shape is {str(space.get('shape'))[:40]}, but the actor block says [{size}]")
 
 
+def tensor_names(layer: int) -> tuple[str, str]:
+    """The names ``weights.safetensors`` and ``spec.json`` give affine layer ``layer``'s weight and bias."""
+    return f"layers.{layer}.weight", f"layers.{layer}.bias"
+
+
 @dataclass(frozen=True)
 class ActorShape:
     """The checked numbers of the ``actor`` block: enough to know every tensor before building."""
@@ -136,8 +141,8 @@ class ActorShape:
         sizes = [self.observation_size, *self.layer_widths, 2 * self.action_size]
         shapes: dict[str, tuple[int, ...]] = {}
         for i, (n_in, n_out) in enumerate(pairwise(sizes)):
-            shapes[f"layers.{i}.weight"] = (n_in, n_out)
-            shapes[f"layers.{i}.bias"] = (n_out,)
+            weight, bias = tensor_names(i)
+            shapes[weight], shapes[bias] = (n_in, n_out), (n_out,)
         return shapes
 
 

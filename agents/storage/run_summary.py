@@ -19,12 +19,12 @@ def describe_run(run_dir: Path, result: RunResult) -> str:
     ev, seeds = result.evaluation, result.evaluation_seeds
     det = "deterministic" if result.eval_deterministic else "stochastic"
     episodes = f"{len(seeds)} {det} episode{'s' if len(seeds) != 1 else ''}"
+    reset = f"reset seed {seeds[0]}" if len(seeds) == 1 else f"reset seeds {seeds[0]}..{seeds[-1]}"
     lines.append(f"\nrun folder   {run_dir}")
     lines.append(f"TensorBoard  tensorboard --logdir {run_dir}")
     lines.append(f"policy       {RunFolder(run_dir).policy_path}")
     lines.append(
-        f"evaluation   {episodes} of {result.env_id} after {result.steps} steps (reset seeds "
-        f"{seeds[0]}..{seeds[-1]}): return {ev['return_mean']:.1f} ± {ev['return_std']:.1f} "
+        f"evaluation   {episodes} of {result.env_id} after {result.steps} steps ({reset}): return {ev['return_mean']:.1f} ± {ev['return_std']:.1f} "
         f"(min {ev['return_min']:.1f}, max {ev['return_max']:.1f})"
     )
     mode = "" if result.eval_deterministic else " deterministic=false"

@@ -62,12 +62,13 @@ class LogWindow:
         self._steps += 1
 
     def close(self) -> tuple[dict[str, float], list[dict[str, float]] | None]:
-        """End the window: returns speed figures and each agent's mean diagnostics (updates/s and
-        diagnostics only when the window had updates, else left out / ``None``)."""
+        """End the window: returns speed figures and each agent's mean diagnostics (diagnostics only
+        when the window had updates, else ``None``; updates/s only when they took measurable time)."""
         now = time.perf_counter()
         speed = {"speed/env_steps_per_s": self._steps / max(now - self._start, 1e-9)}
-        if self._updates:
-            # Updates per second of time spent updating: comparable with scripts/bench.py.
+        if self._updates and self._update_time > 0:
+            # Updates per second of time spent updating: comparable with scripts/bench.py. None
+            # measured (a clock that did not advance) gives no rate rather than a division by zero.
             speed["speed/updates_per_s"] = self._updates / self._update_time
         means = [dict(zip(UPDATE_TAGS, row)) for row in (self._sum / self._updates).tolist()] if self._updates else None
         self.total_updates += self._updates

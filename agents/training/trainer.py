@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Mapping, Sequence
+from contextlib import ExitStack
 from pathlib import Path
 from typing import Any
 
@@ -34,6 +35,7 @@ from kiln.storage.writable import reason
 from kiln.training.checkpoint import CheckpointStore, config_difference, config_fingerprint
 from kiln.training.collector import Collector
 from kiln.training.log_window import LogWindow
+from kiln.training.process_state import torch_settings
 from kiln.training.progress import Progress
 from kiln.training.replay import PopulationReplay, check_replay_fits
 from kiln.training.run_log import RunLog
@@ -357,7 +359,7 @@ class TrainingLoop:
         Raises:
             RunStopped: If ``stop`` was requested; a checkpoint of the last whole step was written for every member.
         """
-        r, cfg = self.cfg.run, self.cfg
+        r = self.cfg.run
         resumed_at = self.step if self.members[0].last_checkpoint is not None else None
         self.started = time.perf_counter()
         for m in self.members:
@@ -524,6 +526,7 @@ def train_members(
     claimed: list[RunFolder] = []
     outcomes: dict[int, RunResult | DivergenceError] = {}
     envs: list[gym.Env] = []
+    kept = ExitStack()  # torch's threads and determinism switch go back to the caller's on the way out
     try:
         for folder in folders:
             folder.claim()
@@ -535,9 +538,7 @@ def train_members(
         todo = [i for i in range(len(cfgs)) if i not in outcomes]
         if todo:
             r = cfgs[todo[0]].run
-            torch.set_num_threads(r.threads)
-            if r.deterministic:
-                torch.use_deterministic_algorithms(True)
+            kept.enter_context(torch_settings(r.threads, r.deterministic))
             members = []
             for index, i in enumerate(todo):
                 env, target = _open_task(cfgs[i], len(todo))
@@ -561,6 +562,7 @@ def train_members(
                     raise _write_failure(err, first.folder, first.last_checkpoint) from None
             outcomes.update(zip(todo, results))
     finally:
+        kept.close()
         for env in envs:
             env.close()
         for folder in claimed:

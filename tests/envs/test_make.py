@@ -1,5 +1,6 @@
 """Task construction from a TaskSpec, the spaces Kiln accepts, and a user's own task by module:id."""
 
+import json
 import sys
 import textwrap
 
@@ -10,6 +11,7 @@ import pytest
 from kiln.envs.make import make_env, make_vector_env
 from kiln.envs.task_error import TaskError
 from kiln.envs.task_spec import TaskSpec
+from tests.support.cli import TINY_RUN, run_script
 
 
 class _DictObs(gym.Env):
@@ -141,17 +143,36 @@ def test_user_task_by_module_qualified_id(tmp_path, monkeypatch):
     assert env.spec.max_episode_steps == 7  # the limit the module registered
 
 
-def test_user_module_is_found_in_the_current_directory(tmp_path, monkeypatch):
-    # Scripts run as `python scripts/train.py` have scripts/ on sys.path, not the working folder.
+def test_make_env_leaves_sys_path_as_the_caller_has_it(tmp_path, monkeypatch):
+    # The library never changes the caller's sys.path (README, "Use from Python"): a module in the
+    # current folder that is not on sys.path is not found there, and sys.path is as it was.
     _write_module(tmp_path, "kiln_test_cwd_tasks", "KilnTestCwdHold-v0")
     monkeypatch.setattr(sys, "path", [p for p in sys.path if p not in ("", ".", str(tmp_path))])
     monkeypatch.chdir(tmp_path)
-    env = make_env(TaskSpec("kiln_test_cwd_tasks:KilnTestCwdHold-v0", {}, None))
-    assert env.reset(seed=0)[0].tolist() == [0.25]
+    before = list(sys.path)
+    with pytest.raises(TaskError, match="cannot import module 'kiln_test_cwd_tasks'.*on sys.path for a Python caller"):
+        make_env(TaskSpec("kiln_test_cwd_tasks:KilnTestCwdHold-v0", {}, None))
+    assert sys.path == before
+
+
+def test_the_train_script_finds_a_module_in_the_folder_it_runs_from(tmp_path):
+    # `python scripts/train.py` has scripts/ on sys.path, not the folder it is typed in; the command
+    # makes that folder importable itself (README, "Your own task and presets").
+    _write_module(tmp_path, "kiln_test_script_tasks", "KilnTestScriptHold-v0")
+    run_dir = tmp_path / "run"
+    proc = run_script(
+        "train", "env.id=kiln_test_script_tasks:KilnTestScriptHold-v0", "env.name=hold", *TINY_RUN,
+        f"hydra.run.dir={run_dir}", cwd=tmp_path, timeout=300,
+    )  # fmt: skip
+    assert proc.returncode == 0, proc.stderr
+    result = json.loads((run_dir / "result.json").read_text())
+    assert result["env_id"] == "kiln_test_script_tasks:KilnTestScriptHold-v0"
+    # The user's module registered a 7-step limit, and its task never terminates: 7-step episodes.
+    assert result["evaluation"]["length_mean"] == 7
 
 
 def test_missing_user_module_is_one_clear_line(tmp_path, monkeypatch):
-    monkeypatch.setattr(sys, "path", list(sys.path))  # make_env adds the working folder to sys.path
+    monkeypatch.setattr(sys, "path", list(sys.path))  # whatever the lookup does, sys.path stays the suite's
     monkeypatch.chdir(tmp_path)
     with pytest.raises(TaskError) as info:
         make_env(TaskSpec("kiln_test_absent_module:Anything-v0", {}, None))

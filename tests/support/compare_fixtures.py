@@ -13,12 +13,13 @@ from torch.utils.tensorboard import SummaryWriter
 
 
 def run_config(seed: int, target_entropy: Any, *, env_id: str = "Pendulum-v1", steps: int = 1000) -> dict:
-    """A small resolved run config in the shape the training loop writes."""
+    """A small resolved run config in the shape the training loop writes (README.md, "Training": the
+    agent's keys; ``target_entropy`` is ``minus_action_dims``, a number or a list)."""
     return {
         "seed": seed,
         "steps": steps,
         "env": {"id": env_id, "name": env_id.split("-")[0].lower()},
-        "agent": {"temperature": {"tune": True, "initial": 1.0, "target_entropy": target_entropy, "lr": 3e-4}},
+        "agent": {"temperature": {"mode": "tuned", "start": 1.0, "target_entropy": target_entropy, "lr": 3e-4}},
     }
 
 

@@ -5,7 +5,9 @@
 POINT is where the N-th call kills the process: ``none`` (run to the end), ``warmup`` (a collector
 step during warm-up), ``update`` (inside an update: after the critic, actor and α steps, before the
 target networks move), ``evaluation`` (inside an evaluation rollout), ``checkpoint`` (between the
-files of a checkpoint being written), ``replay_chunk`` (while a checkpoint's replay rows are written). A SIGKILL cannot be caught: nothing of Kiln runs after it.
+files of a checkpoint being written), ``replay_chunk`` (while a checkpoint's replay rows are
+written). A SIGKILL cannot be caught: nothing of Kiln runs after it. Used by
+tests/training/test_resume_bitwise.py.
 """
 
 import os

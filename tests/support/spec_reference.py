@@ -35,7 +35,7 @@ def reference_heads(policy_folder: Path, observations: np.ndarray) -> tuple[np.n
     actor = _spec(policy_folder)["actor"]
     weights = load_file(str(Path(policy_folder) / "weights.safetensors"))
     # "y = x @ W + b, with x a row vector [batch, in], W [in, out], b [out]"; "tensors are applied in
-    # the order listed; the nonlinearity follows every layer but the last".
+    # the order listed; the nonlinearity (<name>) follows every layer but the last".
     x = np.asarray(observations, dtype=np.float64)
     entries = actor["weight_layout"]["tensors"]
     for i, entry in enumerate(entries):
