@@ -112,10 +112,10 @@ class SoftActorCritic(nn.Module):
         """A policy sample for every agent, ``[population, act_dim]``, from ``obs`` ``[population, obs_dim]``.
 
         Agent k's noise is ``torch.randn((1, act_dim), generator=generators[k])``, drawn by
-        :meth:`kiln.learner.actor.SquashedGaussianActor.sample` as the update draws it, so a run's
-        generator follows the same course in a population as alone.
+        :meth:`kiln.learner.actor.SquashedGaussianActor.sample_action` as the update's ``sample`` draws
+        it, so a run's generator follows the same course in a population as alone.
         """
-        return self.actor.sample(observation_rows(obs).unsqueeze(1), self.generators)[0][:, 0].numpy()
+        return self.actor.sample_action(observation_rows(obs).unsqueeze(1), self.generators)[:, 0].numpy()
 
     @torch.inference_mode()
     def sample_with_log_prob(self, obs: np.ndarray, generator: torch.Generator) -> tuple[np.ndarray, np.ndarray]:

@@ -50,9 +50,14 @@ def sample(
     return transform(mean, log_std, noise)
 
 
+def pre_squash(mean: torch.Tensor, log_std: torch.Tensor, noise: torch.Tensor) -> torch.Tensor:
+    """``u = mean + exp(log_std) · noise`` for standard-normal ``noise``: the Gaussian sample before tanh."""
+    return mean + torch.exp(log_std) * noise
+
+
 def transform(mean: torch.Tensor, log_std: torch.Tensor, noise: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
     """The sample of :func:`sample` for given standard-normal ``noise``: ``(tanh(u), log_prob_per_dim)``."""
-    u = mean + torch.exp(log_std) * noise
+    u = pre_squash(mean, log_std, noise)
     # log N(u) simplifies to −½ noise² − log_std − log√(2π): no division needed.
     log_prob = -0.5 * noise * noise - log_std - _LOG_SQRT_2PI - log_one_minus_tanh_sq(u)
     return torch.tanh(u), log_prob

@@ -155,6 +155,35 @@ def test_sample_with_one_generator_per_agent_draws_each_agents_noise_from_its_ow
     assert all(torch.equal(a.get_state(), b.get_state()) for a, b in zip(ours, copies))
 
 
+@pytest.mark.parametrize("population,batch", [(1, 1), (1, 50), (3, 4)])
+def test_sample_action_is_samples_action_from_the_same_draws(population, batch):
+    # The action alone is tanh(mean + std·e) with e drawn exactly as sample() draws it (checked above
+    # against torch.randn and torch.distributions): the same numbers, and the generators end alike.
+    actor = _actor(population=population)
+    shape = (population, batch, 3) if population > 1 else (batch, 3)
+    obs = torch.randn(*shape, generator=torch.Generator().manual_seed(8))
+    seeds = range(20, 20 + population)
+    if population > 1:
+        ours, theirs = [torch.Generator().manual_seed(s) for s in seeds], [torch.Generator().manual_seed(s) for s in seeds]
+    else:
+        ours, theirs = torch.Generator().manual_seed(20), torch.Generator().manual_seed(20)
+    with torch.no_grad():
+        action = actor.sample_action(obs, ours)
+        expected, _, _ = actor.sample(obs, theirs)
+    assert torch.equal(action, expected)
+    pairs = zip(ours, theirs) if population > 1 else [(ours, theirs)]
+    assert all(torch.equal(a.get_state(), b.get_state()) for a, b in pairs)
+
+
+def test_sample_action_with_a_one_agent_list_of_generators_draws_as_a_run_of_its_own():
+    actor = _actor(population=1)
+    obs = torch.randn(1, 1, 3, generator=torch.Generator().manual_seed(2))
+    with torch.no_grad():
+        in_list = actor.sample_action(obs, [torch.Generator().manual_seed(4)])
+        alone = actor.sample_action(obs, torch.Generator().manual_seed(4))
+    assert torch.equal(in_list, alone)
+
+
 @pytest.mark.parametrize("nonlinearity", sorted(NONLINEARITIES))
 def test_act_batch_is_the_mode_or_a_sample_drawn_as_randn_n_by_act_dim(nonlinearity):
     """What evaluation acts with: tanh(mean), or tanh(mean + std·e) with e = torch.randn((n, act_dim),
